@@ -23,9 +23,14 @@ from .errors import ConfigError
 
 
 class Evaluator(NamedTuple):
+    """``recheck(curve, state) -> (state, status)`` is an optional cheap identity re-check
+    (e.g. re-running a global orbit search) that searches call every few accepted steps and
+    at the end, outside jit; a non-ok status (``branch_changed``…) stops the search."""
+
     labels: tuple[str, ...]
     init: Callable[[Curve], Any]
     evaluate: Callable[[Curve, Any], tuple[Any, Any, Any]]
+    recheck: Callable[[Curve, Any], tuple[Any, Any]] | None = None
 
 
 @dataclass(frozen=True)
