@@ -14,6 +14,7 @@ from typing import Any, Callable
 
 from .errors import ConfigError
 from .families import FAMILIES, Disk, Ellipse, FourierCurve, Polar, ShapeFamily, Support
+from .searchspec import InvariantOptions, SearchSpec, parse_invariants, parse_search
 from .symmetry import KINDS, Symmetry
 
 _MISSING = object()
@@ -222,11 +223,15 @@ class Config:
     source: str
     shape: ShapeFamily | None = None
     measure: MeasureSpec = MeasureSpec()
+    search: SearchSpec | None = None
+    invariants: InvariantOptions = InvariantOptions()
 
 
 SECTIONS: dict[str, Callable[[Reader], Any]] = {
     "shape": parse_shape,
     "measure": parse_measure,
+    "search": parse_search,
+    "invariants": parse_invariants,
 }
 
 

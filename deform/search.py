@@ -1,0 +1,477 @@
+"""Iso-invariant searches over a shape family's free parameters x ∈ Rⁿ.
+
+Kept invariants F: Rⁿ → Rᵐ (any registered families, concatenated) are held at their start
+values F₀ through the relative residual r(x) = (F(x) − F₀)/s, s_i = max(|F₀_i|, floor).
+
+* ``continuation`` follows {r = 0}: tangent predictor in the null space of J = ∂r/∂x (SVD,
+  numerical rank at ``rank_tolerance``·σ_max), oriented by the projected gradient of the move
+  objective (the previous tangent, or a random null direction from the PRNG key, when that
+  vanishes), then a Gauss–Newton corrector x ← x − J⁺r(x) with J frozen at the base point
+  (chord method, minimal-norm corrections). Failed steps are rejected and retried with half
+  the step; easy steps grow it.
+* ``penalty`` minimizes ½μ‖r‖² + λ·r − w·(move objective) with optax (adam, L-BFGS, sgd);
+  λ is the augmented-Lagrangian multiplier, updated λ ← λ + μr every few accepted steps.
+
+Move objectives (maximized): D(x₀, x)² for ``distance`` (objectives.distance, isometry-
+invariant), −½(q(x) − target)² for a coefficient or a non-kept invariant entry q.
+A step is an (init, update) pair over one :class:`SearchState`; ``update`` is jitted once per
+run and never retraced. Every attempt reports an objectives.status.Status.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable, NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import optax
+
+from objectives import geometry
+from objectives.curve import Curve, nodes
+from objectives.distance import shape_distance
+from objectives.status import Status, code, combine
+
+from . import invariants as registry
+from .errors import ConfigError
+from .families import ShapeFamily
+from .searchspec import InvariantOptions, SearchSpec
+
+SIMPLICITY_FLOOR = 1e-3
+"""Chord–arc margin below which a step is rejected as self-intersecting (as in validate.py)."""
+CONSTRAINT_RESOLUTION = 256
+TRACES: dict[str, int] = {"continuation": 0, "penalty": 0}
+"""How often each mode's update has been traced (tests assert no retracing between steps)."""
+
+
+class SearchState(NamedTuple):
+    """Everything that changes between steps; the loop around ``update`` holds nothing else."""
+
+    step: jax.Array            # accepted steps so far (int32)
+    params: jax.Array          # free shape parameters x
+    key: jax.Array             # PRNG key (raw uint32[2])
+    tangent: jax.Array         # last accepted predictor direction (continuation)
+    step_size: jax.Array       # continuation step length / penalty update multiplier
+    rejections: jax.Array      # consecutive rejected attempts (int32)
+    multipliers: jax.Array     # augmented-Lagrangian λ (penalty)
+    opt_state: Any             # optax state (penalty), () otherwise
+    evaluator_states: tuple    # one warm state per tracked invariant family
+
+
+class StepInfo(NamedTuple):
+    """What one attempt produced (candidate values; a result only if ``accepted``)."""
+
+    accepted: jax.Array
+    status: jax.Array
+    family_status: jax.Array
+    params: jax.Array
+    values: jax.Array
+    residuals: jax.Array
+    residual: jax.Array
+    move: jax.Array
+    distance: jax.Array
+    step_size: jax.Array
+    iterations: jax.Array
+    null_dim: jax.Array
+
+
+class Context(NamedTuple):
+    """Per-run constants passed to the jitted update as arguments (not baked in)."""
+
+    start: jax.Array
+    targets: jax.Array
+    scales: jax.Array
+
+
+@dataclass(frozen=True)
+class Problem:
+    """A search problem resolved against the registry (host side, built once per run)."""
+
+    family: ShapeFamily
+    start: np.ndarray
+    names: tuple[str, ...]                  # tracked families: kept first, then watched/moved
+    evaluators: tuple[registry.Evaluator, ...]
+    n_kept_families: int
+    labels: tuple[str, ...]                 # "family:entry" for every tracked value
+    n_kept: int                             # first n_kept values are kept
+    move_kind: str
+    move_index: int                         # parameter index or value index
+    move_target: float
+    move_tolerance: float
+    convex: bool
+
+    def curve(self, params) -> Curve:
+        return Curve(self.family.boundary, params)
+
+    @property
+    def move_label(self) -> str:
+        if self.move_kind == "distance":
+            return "distance from start"
+        if self.move_kind == "coefficient":
+            return self.family.param_labels[self.move_index]
+        return self.labels[self.move_index]
+
+
+def build_problem(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
+                  start: np.ndarray | None = None) -> Problem:
+    """Resolve family names, options and the move target; raise ConfigError on bad input."""
+    names = list(spec.keep) + list(spec.watch)
+    if spec.move.kind == "invariant" and spec.move.family not in names:
+        names.append(spec.move.family)
+    evaluators = []
+    for i, name in enumerate(names):
+        where = f"search.keep[{i}]" if i < len(spec.keep) else "search.watch"
+        try:
+            evaluators.append(registry.build(name, options.options(name), where=where))
+        except (ValueError, TypeError) as err:
+            raise ConfigError(f"invariants.{name}: {err}") from None
+    labels = tuple(f"{n}:{lab}" for n, ev in zip(names, evaluators) for lab in ev.labels)
+    n_kept = sum(len(ev.labels) for ev in evaluators[:len(spec.keep)])
+    if family.n_params == 0:
+        raise ConfigError("shape: the family has no free parameters, so nothing can move "
+                          "(drop fix_scale or use a family with modes)")
+    move_index, move = 0, spec.move
+    if move.kind == "coefficient":
+        free = family.param_labels
+        if move.coefficient not in free:
+            raise ConfigError(f"search.move.coefficient: {move.coefficient!r} is not a free "
+                              f"coefficient of this shape (free: {', '.join(free)})")
+        move_index = free.index(move.coefficient)
+    elif move.kind == "invariant":
+        offset = sum(len(ev.labels) for ev in evaluators[:names.index(move.family)])
+        own = evaluators[names.index(move.family)].labels
+        if move.entry.isdigit() and int(move.entry) < len(own):
+            move_index = offset + int(move.entry)
+        elif move.entry in own:
+            move_index = offset + own.index(move.entry)
+        else:
+            raise ConfigError(f"search.move.entry: {move.entry!r} is not an entry of "
+                              f"{move.family!r} (expected an index < {len(own)} or one of: "
+                              f"{', '.join(own)})")
+    x0 = np.asarray(family.initial_params() if start is None else start, dtype=np.float64)
+    return Problem(family, x0, tuple(names), tuple(evaluators), len(spec.keep), labels, n_kept,
+                   move.kind, move_index, move.target, move.tolerance, spec.convex)
+
+
+# --------------------------------------------------------------------------- evaluation
+
+
+def _evaluate_all(problem: Problem, x, states):
+    """(values of every tracked family, new states, per-family status codes)."""
+    curve = problem.curve(x)
+    values, new_states, codes = [], [], []
+    for evaluator, state in zip(problem.evaluators, states):
+        v, s, c = evaluator.evaluate(curve, state)
+        values.append(jnp.atleast_1d(v).astype(jnp.float64))
+        new_states.append(s)
+        codes.append(jnp.asarray(c, dtype=jnp.int32))
+    return jnp.concatenate(values), tuple(new_states), jnp.stack(codes)
+
+
+def _residual(problem: Problem, ctx: Context, x, states):
+    values, new_states, codes = _evaluate_all(problem, x, states)
+    return (values[:problem.n_kept] - ctx.targets) / ctx.scales, (values, new_states, codes)
+
+
+def _move_quantity(problem: Problem, ctx: Context, x, values):
+    """The moved quantity q (D for distance; the coefficient or the invariant entry)."""
+    if problem.move_kind == "distance":
+        return shape_distance(problem.curve(ctx.start), problem.curve(x))
+    if problem.move_kind == "coefficient":
+        return x[problem.move_index]
+    return values[problem.move_index]
+
+
+def _move_objective(problem: Problem, ctx: Context, x, states):
+    """Objective to increase: D² (smooth at the start) or −½(q − target)²."""
+    if problem.move_kind == "distance":
+        return shape_distance(problem.curve(ctx.start), problem.curve(x), smooth=True)
+    if problem.move_kind == "coefficient":
+        q = x[problem.move_index]
+    else:
+        q = _evaluate_all(problem, x, states)[0][problem.move_index]
+    return -0.5 * (q - problem.move_target) ** 2
+
+
+def constraint_status(problem: Problem, x):
+    """self_intersection / not_convex (when asked) / nonfinite for a candidate shape."""
+    curve = problem.curve(x)
+    simple = geometry.simplicity(curve, CONSTRAINT_RESOLUTION)
+    bad = simple.crossing | ~(simple.margin >= SIMPLICITY_FLOOR) | ~(
+        geometry.area(curve, CONSTRAINT_RESOLUTION) > 0)
+    status = jnp.where(bad, code(Status.self_intersection), code(Status.ok))
+    if problem.convex:
+        kmin = geometry.convexity_margin(curve, CONSTRAINT_RESOLUTION)[0]
+        status = combine(status, jnp.where(kmin > 0, code(Status.ok), code(Status.not_convex)))
+    finite = jnp.all(jnp.isfinite(x))
+    return jnp.where(finite, status, code(Status.nonfinite))
+
+
+def _unit(v):
+    norm = jnp.linalg.norm(v)
+    return v / jnp.where(norm > 0, norm, 1.0), norm
+
+
+# --------------------------------------------------------------------------- continuation
+
+
+def _null_space(J, rank_tolerance):
+    """SVD pieces: projector onto null(J), pseudo-inverse action, rank and null dimension."""
+    m, n = J.shape
+    U, S, Vt = jnp.linalg.svd(J, full_matrices=True)
+    k = S.shape[0]
+    in_rank = S > rank_tolerance * jnp.maximum(S[0], 1e-300)
+    null_mask = jnp.concatenate([~in_rank, jnp.ones(n - k, dtype=bool)]) if n > k else ~in_rank
+    projector = Vt.T @ (null_mask[:, None].astype(J.dtype) * Vt)
+    inv_s = jnp.where(in_rank, 1.0 / jnp.where(in_rank, S, 1.0), 0.0)
+
+    def pinv_apply(r):
+        return Vt[:k].T @ ((U[:, :k].T @ r) * inv_s)
+
+    return projector, pinv_apply, jnp.sum(in_rank), jnp.sum(null_mask)
+
+
+def make_continuation(problem: Problem, spec: SearchSpec):
+    """(init, update) for predictor–corrector continuation along {r = 0}."""
+    cs = spec.continuation
+
+    def init(ctx: Context, key, evaluator_states) -> SearchState:
+        n = ctx.start.shape[0]
+        return SearchState(
+            step=jnp.asarray(0, jnp.int32), params=jnp.asarray(ctx.start), key=key,
+            tangent=jnp.zeros(n), step_size=jnp.asarray(cs.step_size),
+            rejections=jnp.asarray(0, jnp.int32), multipliers=jnp.zeros(problem.n_kept),
+            opt_state=(), evaluator_states=evaluator_states)
+
+    def update(ctx: Context, state: SearchState):
+        TRACES["continuation"] += 1
+        x, states = state.params, state.evaluator_states
+        J = jax.jacfwd(lambda p: _residual(problem, ctx, p, states)[0])(x)
+        projector, pinv_apply, _, null_dim = _null_space(J, cs.rank_tolerance)
+        key, sub = jax.random.split(state.key)
+        along_move, move_norm = _unit(projector @ jax.grad(
+            lambda p: _move_objective(problem, ctx, p, states))(x))
+        along_prev, prev_norm = _unit(projector @ state.tangent)
+        along_random, _ = _unit(projector @ jax.random.normal(sub, x.shape))
+        direction = jnp.where(move_norm > 1e-12, along_move,
+                              jnp.where(prev_norm > 1e-12, along_prev, along_random))
+        h = state.step_size
+        if problem.move_kind != "distance":
+            # do not overshoot the target: a linear estimate of the remaining distance
+            values0 = _evaluate_all(problem, x, states)[0]
+            gap = jnp.abs(_move_quantity(problem, ctx, x, values0) - problem.move_target)
+            rate = jnp.abs(jax.grad(lambda p: _move_quantity(
+                problem, ctx, p, _evaluate_all(problem, p, states)[0]))(x) @ direction)
+            h = jnp.minimum(h, gap / jnp.maximum(rate, 1e-12))
+        predicted = x + h * direction
+        r0, (_, states0, _) = _residual(problem, ctx, predicted, states)
+
+        def not_done(carry):
+            _, _, r, it = carry
+            return (it < cs.corrector_iterations) & ~(jnp.max(jnp.abs(r)) <= cs.tolerance)
+
+        def correct(carry):
+            p, st, r, it = carry
+            p = p - pinv_apply(r)
+            r, (_, st, _) = _residual(problem, ctx, p, st)
+            return p, st, r, it + 1
+
+        x_new, states_new, r, iterations = jax.lax.while_loop(
+            not_done, correct, (predicted, states0, r0, jnp.asarray(0, jnp.int32)))
+        values, states_new, codes = _evaluate_all(problem, x_new, states_new)
+        r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+        residual = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
+        converged = residual <= cs.tolerance
+        status = combine(jnp.max(codes), constraint_status(problem, x_new),
+                         jnp.where(converged, code(Status.ok), code(Status.solver_failed)),
+                         jnp.where(null_dim > 0, code(Status.ok), code(Status.degenerate)),
+                         jnp.where(jnp.all(jnp.isfinite(values)), code(Status.ok),
+                                   code(Status.nonfinite)))
+        accepted = status == int(Status.ok)
+        factor = jnp.where(iterations <= 3, cs.grow, jnp.where(iterations <= 6, 1.0, 1 / cs.grow))
+        grown = jnp.clip(state.step_size * factor, cs.min_step, cs.max_step)
+        pick = lambda a, b: jax.tree_util.tree_map(  # noqa: E731
+            lambda u, v: jnp.where(accepted, u, v), a, b)
+        new_state = SearchState(
+            step=state.step + accepted.astype(jnp.int32),
+            params=pick(x_new, x), key=key, tangent=pick(direction, state.tangent),
+            step_size=jnp.where(accepted, grown, state.step_size * 0.5),
+            rejections=jnp.where(accepted, 0, state.rejections + 1),
+            multipliers=state.multipliers, opt_state=(),
+            evaluator_states=pick(states_new, states))
+        info = StepInfo(accepted, status, codes, x_new, values, r, residual,
+                        _move_quantity(problem, ctx, x_new, values),
+                        shape_distance(problem.curve(ctx.start), problem.curve(x_new)), h,
+                        iterations, null_dim)
+        return new_state, info
+
+    return init, update
+
+
+# --------------------------------------------------------------------------- penalty
+
+
+def _optimizer(spec: SearchSpec) -> optax.GradientTransformationExtraArgs:
+    """The configured optax optimizer followed by a clip of each update's norm."""
+    ps = spec.penalty
+    if ps.optimizer == "adam":
+        base = optax.adam(ps.learning_rate)
+    elif ps.optimizer == "sgd":
+        base = optax.sgd(ps.learning_rate)
+    else:  # step lengths come from its zoom line search; learning_rate is not used
+        base = optax.lbfgs()
+    return optax.chain(base, optax.clip_by_global_norm(ps.max_update))
+
+
+def make_penalty(problem: Problem, spec: SearchSpec):
+    """(init, update) for the penalty / augmented-Lagrangian descent."""
+    ps = spec.penalty
+    tx = _optimizer(spec)
+
+    def loss(ctx, x, states, multipliers):
+        r = _residual(problem, ctx, x, states)[0]
+        fit = 0.5 * ps.weight * jnp.sum(r * r) + jnp.sum(multipliers * r)
+        return fit - ps.move_weight * _move_objective(problem, ctx, x, states)
+
+    def init(ctx: Context, key, evaluator_states) -> SearchState:
+        x = jnp.asarray(ctx.start)
+        return SearchState(
+            step=jnp.asarray(0, jnp.int32), params=x, key=key, tangent=jnp.zeros_like(x),
+            step_size=jnp.asarray(1.0), rejections=jnp.asarray(0, jnp.int32),
+            multipliers=jnp.zeros(problem.n_kept), opt_state=tx.init(x),
+            evaluator_states=evaluator_states)
+
+    def update(ctx: Context, state: SearchState):
+        TRACES["penalty"] += 1
+        x, states = state.params, state.evaluator_states
+        value_fn = lambda p: loss(ctx, p, states, state.multipliers)  # noqa: E731
+        value, grad = jax.value_and_grad(value_fn)(x)
+        updates, opt_state = tx.update(grad, state.opt_state, x, value=value, grad=grad,
+                                       value_fn=value_fn)
+        x_new = x + state.step_size * updates
+        values, states_new, codes = _evaluate_all(problem, x_new, states)
+        r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+        residual = jnp.max(jnp.abs(r))
+        status = combine(jnp.max(codes), constraint_status(problem, x_new),
+                         jnp.where(jnp.all(jnp.isfinite(values)), code(Status.ok),
+                                   code(Status.nonfinite)))
+        accepted = status == int(Status.ok)
+        step = state.step + accepted.astype(jnp.int32)
+        refresh = accepted & (ps.multiplier_every > 0) & (
+            step % max(ps.multiplier_every, 1) == 0)
+        pick = lambda a, b: jax.tree_util.tree_map(  # noqa: E731
+            lambda u, v: jnp.where(accepted, u, v), a, b)
+        new_state = SearchState(
+            step=step, params=pick(x_new, x), key=state.key, tangent=pick(updates, state.tangent),
+            step_size=jnp.where(accepted, jnp.minimum(1.0, state.step_size * 1.5),
+                                state.step_size * 0.5),
+            rejections=jnp.where(accepted, 0, state.rejections + 1),
+            multipliers=jnp.where(refresh, state.multipliers + ps.weight * r, state.multipliers),
+            opt_state=pick(opt_state, state.opt_state),
+            evaluator_states=pick(states_new, states))
+        info = StepInfo(accepted, status, codes, x_new, values, r, residual,
+                        _move_quantity(problem, ctx, x_new, values),
+                        shape_distance(problem.curve(ctx.start), problem.curve(x_new)),
+                        state.step_size * jnp.linalg.norm(updates),
+                        jnp.asarray(1, jnp.int32), jnp.asarray(-1, jnp.int32))
+        return new_state, info
+
+    return init, update
+
+
+MODES: dict[str, Callable] = {"continuation": make_continuation, "penalty": make_penalty}
+
+
+# --------------------------------------------------------------------------- set-up
+
+
+class Prepared(NamedTuple):
+    """A problem ready to step: context, initial state, jitted update, start diagnostics."""
+
+    problem: Problem
+    ctx: Context
+    state: SearchState
+    update: Callable
+    start_values: np.ndarray
+    start_status: np.ndarray
+    rank: int
+    singular_values: np.ndarray
+
+
+def named_keys(seed: int, names: tuple[str, ...]) -> dict[str, jax.Array]:
+    """One PRNG key from the seed, split into named sub-keys."""
+    keys = jax.random.split(jax.random.PRNGKey(seed), len(names))
+    return dict(zip(names, keys))
+
+
+def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
+    """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian."""
+    curve = problem.curve(jnp.asarray(problem.start))
+    states = tuple(ev.init(curve) for ev in problem.evaluators)
+    values, states, codes = jax.jit(lambda x, s: _evaluate_all(problem, x, s))(
+        jnp.asarray(problem.start), states)
+    values = np.asarray(values)
+    targets = values[:problem.n_kept]
+    scales = np.maximum(np.abs(targets), spec.scale_floor)
+    ctx = Context(jnp.asarray(problem.start), jnp.asarray(targets), jnp.asarray(scales))
+    J = jax.jit(jax.jacfwd(lambda x: _residual(problem, ctx, x, states)[0]))(ctx.start)
+    sv = np.linalg.svd(np.asarray(J), compute_uv=False)
+    tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
+    rank = int(np.sum(sv > tol))
+    init, update = MODES[spec.mode](problem, spec)
+    key = named_keys(spec.seed, ("search",))["search"]
+    state = init(ctx, key, states)
+    return Prepared(problem, ctx, state, jax.jit(update), values, np.asarray(codes), rank, sv)
+
+
+# --------------------------------------------------------------------------- state ⇄ vector
+
+
+def flatten_state(state: SearchState) -> np.ndarray:
+    """All leaves as one float64 vector (exact for the int32/uint32 leaves used here)."""
+    leaves = jax.tree_util.tree_leaves(state)
+    return np.concatenate([np.asarray(v, dtype=np.float64).ravel() for v in leaves])
+
+
+def unflatten_state(template: SearchState, vector: np.ndarray) -> SearchState:
+    leaves, treedef = jax.tree_util.tree_flatten(template)
+    out, offset = [], 0
+    for leaf in leaves:
+        leaf = np.asarray(leaf)
+        size = leaf.size
+        out.append(jnp.asarray(vector[offset:offset + size].reshape(leaf.shape).astype(leaf.dtype)))
+        offset += size
+    if offset != vector.size:
+        raise ConfigError(f"--resume: the record's state has {vector.size} entries, this config "
+                          f"needs {offset} (was the record made with another config?)")
+    return jax.tree_util.tree_unflatten(treedef, out)
+
+
+def boundary_sample(problem: Problem, params, points: int) -> np.ndarray:
+    curve = problem.curve(jnp.asarray(params))
+    return np.asarray(jax.vmap(curve)(nodes(points)))
+
+
+def evaluator_data(problem: Problem, state: SearchState) -> dict[str, np.ndarray]:
+    """Flattened warm state per family that has one (e.g. tracked orbits)."""
+    out = {}
+    for name, st in zip(problem.names, state.evaluator_states):
+        leaves = jax.tree_util.tree_leaves(st)
+        if leaves:
+            out[name] = np.concatenate([np.asarray(v, dtype=np.float64).ravel() for v in leaves])
+    return out
+
+
+def recheck(problem: Problem, state: SearchState) -> tuple[SearchState, list[tuple[str, Status]]]:
+    """Run the evaluators' ``recheck`` hooks on the current shape (outside jit)."""
+    curve = problem.curve(state.params)
+    new_states, reports = [], []
+    for name, ev, st in zip(problem.names, problem.evaluators, state.evaluator_states):
+        if ev.recheck is None:
+            new_states.append(st)
+            continue
+        st, status = ev.recheck(curve, st)
+        new_states.append(st)
+        reports.append((name, Status(int(status))))
+    return state._replace(evaluator_states=tuple(new_states)), reports
