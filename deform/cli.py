@@ -8,7 +8,7 @@ import sys
 from dataclasses import dataclass
 from typing import Callable
 
-from . import __version__
+from . import __version__, runcli
 from .errors import ConfigError, DeformError
 
 
@@ -112,6 +112,12 @@ def json_ready(value):
 COMMANDS: list[Command] = [
     Command("check", "validate a config file without running it", _check_args, _check_run),
     Command("measure", "print the invariants of a shape", _measure_args, _measure_run),
+    Command("run", "run a search config and record it (HDF5)", runcli.run_args, runcli.run_run),
+    Command("inspect", "print a record's config, summary and steps", runcli.inspect_args,
+            runcli.inspect_run),
+    Command("plot", "write PNG figures of a record", runcli.plot_args, runcli.plot_run),
+    Command("demo", "run the default demo search (runs/demo.h5 + figures)", runcli.demo_args,
+            runcli.demo_run),
 ]
 
 

@@ -82,6 +82,24 @@ class Context(NamedTuple):
     start: jax.Array
     targets: jax.Array
     scales: jax.Array
+    weights: jax.Array
+
+
+def step_weights(family: ShapeFamily, smoothness: float) -> np.ndarray:
+    """Diagonal metric for steps: w = (1 + k²)^(−s/2) for a coefficient of Fourier mode k.
+
+    Steps are measured and taken in y with x = x₀ + W y, i.e. in a Sobolev-H^s-like norm of the
+    boundary, so a unit step moves mode k by ~k^(−s): curvature-based invariants (∮κ_s², …)
+    grow like k^(2·order) and would otherwise make every high-mode step fail. The mode number
+    is read from the label (``cos[3]``, ``re[-2]``); unlabelled entries (radius, axes) get k = 0.
+    """
+    import re
+
+    ks = []
+    for label in family.param_labels:
+        found = re.search(r"\[(-?\d+)\]", label)
+        ks.append(abs(int(found.group(1))) if found else 0)
+    return (1.0 + np.asarray(ks, dtype=np.float64) ** 2) ** (-0.5 * smoothness)
 
 
 @dataclass(frozen=True)
@@ -246,16 +264,18 @@ def make_continuation(problem: Problem, spec: SearchSpec):
 
     def update(ctx: Context, state: SearchState):
         TRACES["continuation"] += 1
-        x, states = state.params, state.evaluator_states
-        J = jax.jacfwd(lambda p: _residual(problem, ctx, p, states)[0])(x)
-        projector, pinv_apply, _, null_dim = _null_space(J, cs.rank_tolerance)
+        x, states, w = state.params, state.evaluator_states, ctx.weights
+        jacobian = jax.jacfwd(lambda p: _residual(problem, ctx, p, states)[0])
+        # all linear algebra in the weighted coordinates y (x = x₀ + W y)
+        projector, pinv_apply, _, null_dim = _null_space(jacobian(x) * w, cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
-        along_move, move_norm = _unit(projector @ jax.grad(
-            lambda p: _move_objective(problem, ctx, p, states))(x))
+        along_move, move_norm = _unit(projector @ (w * jax.grad(
+            lambda p: _move_objective(problem, ctx, p, states))(x)))
         along_prev, prev_norm = _unit(projector @ state.tangent)
         along_random, _ = _unit(projector @ jax.random.normal(sub, x.shape))
-        direction = jnp.where(move_norm > 1e-12, along_move,
-                              jnp.where(prev_norm > 1e-12, along_prev, along_random))
+        tangent = jnp.where(move_norm > 1e-12, along_move,
+                            jnp.where(prev_norm > 1e-12, along_prev, along_random))
+        direction = w * tangent
         h = state.step_size
         if problem.move_kind != "distance":
             # do not overshoot the target: a linear estimate of the remaining distance
@@ -273,7 +293,10 @@ def make_continuation(problem: Problem, spec: SearchSpec):
 
         def correct(carry):
             p, st, r, it = carry
-            p = p - pinv_apply(r)
+            if cs.corrector == "newton":  # Gauss–Newton: minimal-norm step with J at p
+                p = p - w * (jnp.linalg.pinv(jacobian(p) * w, rtol=cs.rank_tolerance) @ r)
+            else:  # chord: J frozen at the base point
+                p = p - w * pinv_apply(r)
             r, (_, st, _) = _residual(problem, ctx, p, st)
             return p, st, r, it + 1
 
@@ -295,7 +318,7 @@ def make_continuation(problem: Problem, spec: SearchSpec):
             lambda u, v: jnp.where(accepted, u, v), a, b)
         new_state = SearchState(
             step=state.step + accepted.astype(jnp.int32),
-            params=pick(x_new, x), key=key, tangent=pick(direction, state.tangent),
+            params=pick(x_new, x), key=key, tangent=pick(tangent, state.tangent),
             step_size=jnp.where(accepted, grown, state.step_size * 0.5),
             rejections=jnp.where(accepted, 0, state.rejections + 1),
             multipliers=state.multipliers, opt_state=(),
@@ -414,9 +437,11 @@ def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     values = np.asarray(values)
     targets = values[:problem.n_kept]
     scales = np.maximum(np.abs(targets), spec.scale_floor)
-    ctx = Context(jnp.asarray(problem.start), jnp.asarray(targets), jnp.asarray(scales))
+    weights = step_weights(problem.family, spec.smoothness)
+    ctx = Context(jnp.asarray(problem.start), jnp.asarray(targets), jnp.asarray(scales),
+                  jnp.asarray(weights))
     J = jax.jit(jax.jacfwd(lambda x: _residual(problem, ctx, x, states)[0]))(ctx.start)
-    sv = np.linalg.svd(np.asarray(J), compute_uv=False)
+    sv = np.linalg.svd(np.asarray(J) * weights, compute_uv=False)
     tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
     rank = int(np.sum(sv > tol))
     init, update = MODES[spec.mode](problem, spec)

@@ -17,6 +17,7 @@ from .errors import ConfigError
 MODES = ("continuation", "penalty")
 MOVE_KINDS = ("distance", "coefficient", "invariant")
 OPTIMIZERS = ("adam", "lbfgs", "sgd")
+CORRECTORS = ("newton", "chord")
 
 
 @dataclass(frozen=True)
@@ -45,6 +46,7 @@ class ContinuationSpec:
     corrector_iterations: int = 12
     tolerance: float = 1e-10
     rank_tolerance: float = 1e-8
+    corrector: str = "newton"
 
 
 @dataclass(frozen=True)
@@ -70,6 +72,7 @@ class SearchSpec:
     recheck_every: int = 10
     scale_floor: float = 1e-9
     boundary_points: int = 128
+    smoothness: float = 2.0
     move: MoveSpec = MoveSpec()
     continuation: ContinuationSpec = ContinuationSpec()
     penalty: PenaltySpec = PenaltySpec()
@@ -137,6 +140,7 @@ def _continuation(r) -> ContinuationSpec:
                                        minimum=1, maximum=100),
         tolerance=r.number("tolerance", d.tolerance, positive=True, maximum=1e-2),
         rank_tolerance=r.number("rank_tolerance", d.rank_tolerance, positive=True, maximum=0.1),
+        corrector=r.string("corrector", d.corrector, choices=CORRECTORS),
     )
     if not spec.min_step <= spec.step_size <= spec.max_step:
         raise ConfigError(f"{r.key('step_size')}: expected min_step <= step_size <= max_step, "
@@ -184,6 +188,7 @@ def parse_search(r) -> SearchSpec:
         recheck_every=r.integer("recheck_every", 10, minimum=0),
         scale_floor=r.number("scale_floor", 1e-9, positive=True),
         boundary_points=r.integer("boundary_points", 128, minimum=16, maximum=4096),
+        smoothness=r.number("smoothness", 2.0, minimum=0.0, maximum=8.0),
         move=move,
         continuation=_continuation(r.sub("continuation", {})),
         penalty=_penalty(r.sub("penalty", {})),
