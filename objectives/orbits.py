@@ -1,0 +1,793 @@
+"""Periodic billiard orbits of a convex (or checked non-convex) table and their linear stability.
+
+Orbits are critical points of the periodic length function W(t_1..t_q) = Σ|γ(t_{i+1}) − γ(t_i)|
+(Birkhoff 1927). For every coprime p/q with 2 ≤ q ≤ Q, p ≤ q/2 we report the orbit of maximal
+length and the min-max orbit (Birkhoff's two orbits; Aubry–Mather theory), plus every
+bouncing ball (2-periodic orbit hitting the boundary orthogonally at both ends).
+
+Cold path, :func:`find_orbits`: a global max-plus dynamic programme over a boundary grid equally
+spaced in arclength gives, for every start point, the longest closed path of q chords winding p
+times (the discrete Birkhoff function B). Local maxima of B seed the max orbit and local minima
+seed the min-max orbit; each seed is refined by Newton's method with a pseudo-inverse Hessian (so
+one-parameter families, e.g. the circle and the ellipse, give no NaN), and the best refined orbit
+of the right Morse type is kept. Bouncing balls are all simultaneous zeros of ⟨d, T(t₁)⟩ and
+⟨d, T(t₂)⟩ (d the chord), bracketed on a grid of the torus and refined by Newton.
+
+Warm path, :func:`refine_orbits`: a few Newton steps from the previous bounce parameters under
+``stop_gradient``, then one implicit-function correction t* − H⁺∇W(t*, θ) with H⁺ stopped, so
+the monodromy and everything built from it have exact first derivatives; lengths are W at the
+critical point (envelope theorem). One padded code path (Q slots) for all rotation numbers.
+
+Conventions: phase space (s, p), s arclength, p = cos of the angle from the positive tangent to
+the outgoing ray. The monodromy P is the linearized return map of the full period at the first
+bounce, det P = 1. Kinds: elliptic |tr P| < 2, hyperbolic |tr P| > 2, parabolic otherwise (within
+``PARABOLIC_TOL``). α ∈ (0, π) with tr P = 2 cos α (elliptic); Lyapunov exponent
+log|largest multiplier| per period (hyperbolic). Hessian index: number of positive eigenvalues of
+the Hessian of W (0 for a max, 1 for a min-max orbit). Maslov index of the m-th iterate: the Morse
+index of the length function of the m-fold orbit (number of negative Hessian eigenvalues), i.e.
+the number of conjugate points along it; this is the index σ in the density-of-states trace
+formula d(k) ∋ A cos(kL − σπ/2) (stationary phase over the q bounce points: each free-space Green
+function contributes e^{−iπ/4}, the Hessian e^{iπ sgn/4}; cf. Sieber, Pavloff & Schmit, Phys. Rev.
+E 55 (1997) 2279, from memory). For an elliptic orbit with natural-lift rotation angle ω it equals
+2⌊mω/2π⌋ + 1.
+"""
+
+from __future__ import annotations
+
+from functools import partial
+from math import gcd
+from typing import NamedTuple
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+from numpy.lib.stride_tricks import as_strided
+
+from . import billiard
+from .curve import Array, Curve
+from .status import Status
+
+BRANCHES = ("max", "minimax", "critical")
+KINDS = ("elliptic", "hyperbolic", "parabolic")
+MAX, MINIMAX, CRITICAL = 0, 1, 2
+ELLIPTIC, HYPERBOLIC, PARABOLIC = 0, 1, 2
+
+PARABOLIC_TOL = 1e-9
+"""|tr P ∓ 2| below this is parabolic (round-off on tr P is ~1e-13 for unit-size shapes)."""
+RESIDUAL_TOL = 1e-10
+"""Largest |∂W/∂s_i| (a difference of cosines) accepted as a converged orbit."""
+DEGENERATE_TOL = 1e-8
+"""|det(I − Pᵐ)| or a relative Hessian eigenvalue below this flags a degenerate orbit."""
+RESONANCE_TOL = 1e-6
+"""|sin(mα/2)| below this flags a resonance of order m."""
+NEAR_TIE_TOL = 1e-6
+"""Relative length difference under which two distinct orbits of one kind are a near-tie."""
+
+
+class OrbitSet(NamedTuple):
+    """Periodic orbits with their linear stability; every field has a leading orbit axis K.
+
+    ``t`` holds the bounce parameters padded to Q slots (entries ≥ q repeat t_0 and are unused);
+    ``branch`` indexes :data:`BRANCHES`, ``kind`` :data:`KINDS`; ``angle`` is α (NaN unless
+    elliptic), ``lyapunov`` the exponent per period (NaN unless hyperbolic); ``det_iterates``
+    [k, m−1] = det(I − Pᵐ) = 2 − tr Pᵐ and ``maslov`` [k, m−1] the Maslov index of the m-th iterate;
+    ``reflections`` = q per period; ``status`` an :class:`objectives.status.Status` code.
+    """
+
+    p: Array
+    q: Array
+    branch: Array
+    t: Array
+    length: Array
+    monodromy: Array
+    trace: Array
+    kind: Array
+    angle: Array
+    lyapunov: Array
+    det_iterates: Array
+    maslov: Array
+    reflections: Array
+    residual: Array
+    hessian_index: Array
+    status: Array
+    degenerate: Array
+    resonant: Array
+    near_tie: Array
+
+    @property
+    def size(self) -> int:
+        return int(self.p.shape[0])
+
+    def labels(self) -> tuple[str, ...]:
+        """Stable names: ``1/3,max``, ``2/5,minimax``, ``bb3`` for extra bouncing balls."""
+        out, extra = [], 0
+        for p, q, b in zip(np.asarray(self.p), np.asarray(self.q), np.asarray(self.branch)):
+            if b == CRITICAL:
+                out.append(f"bb{extra}")
+                extra += 1
+            else:
+                out.append(f"{p}/{q},{BRANCHES[b]}")
+        return tuple(out)
+
+    def select(self, index) -> "OrbitSet":
+        """The sub-set at the given orbit indices (numpy index array or mask)."""
+        index = np.asarray(index)
+        return OrbitSet(*(np.asarray(f)[index] for f in self))
+
+
+def rotation_numbers(max_period: int) -> tuple[tuple[int, int], ...]:
+    """Coprime (p, q) with 2 ≤ q ≤ max_period and 1 ≤ p ≤ q/2, ordered by q then p."""
+    return tuple((p, q) for q in range(2, max_period + 1) for p in range(1, q // 2 + 1)
+                 if gcd(p, q) == 1)
+
+
+# ----------------------------------------------------------------------------------------------
+# Orbit data at given bounce parameters (shared by the cold and warm paths)
+
+
+def _active_hessian(chords, period, size):
+    """Arclength Hessian with −scale on padded diagonal entries (so they never look critical)."""
+    hess = billiard.arclength_hessian_from(chords, period)
+    scale = jnp.max(jnp.abs(hess)) + 1.0
+    return hess + jnp.diag(jnp.where(jnp.arange(size) < period, 0.0, -scale)), scale
+
+
+def _morse_counts(chords, period, size):
+    """(#positive, #negative, smallest |eigenvalue| relative) of the active arclength Hessian."""
+    hess, scale = _active_hessian(chords, period, size)
+    lam = jnp.linalg.eigvalsh(hess)
+    tol = DEGENERATE_TOL * scale
+    pos = jnp.sum(lam > tol)
+    neg = jnp.sum(lam < -tol) - (size - period)
+    active_abs = jnp.where(jnp.abs(lam + scale) > 1e-12 * scale, jnp.abs(lam), jnp.inf)
+    return pos, neg, jnp.min(active_abs) / scale
+
+
+def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
+    """Morse index (number of negative eigenvalues) of W on the m-fold orbit, m = 1..M.
+
+    Numpy, outside jit (cold path and reports): the Hessian of the m-fold orbit has size m·q.
+    ``jets`` are the (γ, γ', γ'') at the q bounces.
+    """
+    pts, vel, acc = (np.asarray(a)[:q] for a in jets)
+    out = []
+    for m in range(1, iterates + 1):
+        n = m * q
+        idx = np.arange(n) % q
+        rep = billiard.Jets(jnp.asarray(pts[idx]), jnp.asarray(vel[idx]), jnp.asarray(acc[idx]))
+        hess = np.asarray(_arclength_hessian_np(rep, n))
+        lam = np.linalg.eigvalsh(hess)
+        scale = np.max(np.abs(lam)) + 1.0
+        out.append(int(np.sum(lam < -DEGENERATE_TOL * scale)))
+    return np.asarray(out, dtype=np.int32)
+
+
+def _arclength_hessian_np(jets, n):
+    pts, vel, acc = (np.asarray(a) for a in jets)
+    nxt = (np.arange(n) + 1) % n
+    d = pts[nxt] - pts
+    h = np.linalg.norm(d, axis=1)
+    u = d / h[:, None]
+    speed = np.linalg.norm(vel, axis=1)
+    tan = vel / speed[:, None]
+    kappa = (vel[:, 0] * acc[:, 1] - vel[:, 1] * acc[:, 0]) / speed**3
+    sin_out = tan[:, 0] * u[:, 1] - tan[:, 1] * u[:, 0]
+    sin_in = u[:, 0] * tan[nxt, 1] - u[:, 1] * tan[nxt, 0]
+    a = sin_out**2 / h - kappa * sin_out
+    c = sin_in**2 / h - kappa[nxt] * sin_in
+    b = sin_out * sin_in / h
+    hess = np.zeros((n, n))
+    idx = np.arange(n)
+    np.add.at(hess, (idx, idx), a)
+    np.add.at(hess, (nxt, nxt), c)
+    np.add.at(hess, (idx, nxt), b)
+    np.add.at(hess, (nxt, idx), b)
+    return hess
+
+
+def _power_traces(mono, iterates):
+    """tr Pᵐ for m = 1..M by repeated multiplication."""
+    out, power = [], jnp.eye(2)
+    for _ in range(iterates):
+        power = mono @ power
+        out.append(jnp.trace(power))
+    return jnp.stack(out)
+
+
+def _stability(mono, iterates, resonance_order):
+    tr = jnp.trace(mono)
+    elliptic = jnp.abs(tr) < 2.0 - PARABOLIC_TOL
+    hyperbolic = jnp.abs(tr) > 2.0 + PARABOLIC_TOL
+    kind = jnp.where(elliptic, ELLIPTIC, jnp.where(hyperbolic, HYPERBOLIC, PARABOLIC))
+    half = jnp.clip(tr / 2.0, -1.0 + 1e-15, 1.0 - 1e-15)
+    angle = jnp.where(elliptic, jnp.arccos(jnp.where(elliptic, half, 0.0)), jnp.nan)
+    big = jnp.where(hyperbolic, jnp.abs(tr) / 2.0, 2.0)
+    lyap = jnp.where(hyperbolic, jnp.arccosh(big), jnp.nan)
+    dets = 2.0 - _power_traces(mono, iterates)
+    orders = jnp.arange(1, resonance_order + 1)
+    resonant = elliptic & jnp.any(jnp.abs(jnp.sin(orders * jnp.where(elliptic, angle, 0.0) / 2))
+                                  < RESONANCE_TOL)
+    return tr, kind.astype(jnp.int32), angle, lyap, dets, resonant
+
+
+def orbit_data(curve: Curve, t: Array, q, iterates: int = 3, resonance_order: int = 4):
+    """Everything :class:`OrbitSet` holds (but the Maslov indices) for one padded configuration.
+
+    Returns (jets, length, monodromy, trace, kind, angle, lyapunov, det_iterates, residual,
+    hessian_index, degenerate, resonant, ordered, inward) where ``ordered`` says the bounces
+    wind around the table in cyclic order and ``inward`` that every chord starts and ends
+    inside the table (sin θ > 0 at both ends).
+    """
+    size = t.shape[0]
+    jets = billiard.bounce_jets(curve, t)
+    chords = billiard.chords_from_jets(jets, q)
+    length = jnp.sum(chords.length)
+    mono = billiard.monodromy_from(chords)
+    tr, kind, angle, lyap, dets, resonant = _stability(mono, iterates, resonance_order)
+    n = jnp.arange(size)
+    prev = jnp.where(n == 0, q - 1, n - 1)
+    residual = jnp.max(jnp.where(chords.active, jnp.abs(chords.cos_in[prev] - chords.cos_out), 0.0))
+    pos, _, rel_min = _morse_counts(chords, q, size)
+    degenerate = jnp.any(jnp.abs(dets) < DEGENERATE_TOL) | (rel_min < DEGENERATE_TOL)
+    nxt = billiard.next_index(size, q)
+    steps = jnp.where(chords.active, jnp.mod(t[nxt] - t, 2.0 * jnp.pi), 0.0)
+    ordered = jnp.all(jnp.where(chords.active, steps > 0, True)) | (q == 2)
+    inward = jnp.all(jnp.where(chords.active, (chords.sin_out > 0) & (chords.sin_in > 0), True))
+    return (jets, length, mono, tr, kind, angle, lyap, dets, residual, pos.astype(jnp.int32),
+            degenerate, resonant, ordered, inward)
+
+
+def _winding(t, q):
+    size = t.shape[0]
+    nxt = billiard.next_index(size, q)
+    active = jnp.arange(size) < q
+    steps = jnp.where(active, jnp.mod(t[nxt] - t, 2.0 * jnp.pi), 0.0)
+    return jnp.sum(steps) / (2.0 * jnp.pi)
+
+
+# ----------------------------------------------------------------------------------------------
+# Newton's method on ∇W = 0 with a pseudo-inverse Hessian
+
+
+def _newton_direction(curve, t, q):
+    jets = billiard.bounce_jets(curve, t)
+    chords = billiard.chords_from_jets(jets, q)
+    grad = billiard.length_gradient_from(jets, chords, q)
+    hess = billiard.length_hessian_from(jets, chords, q)
+    active = jnp.arange(t.shape[0]) < q
+    hess = hess + jnp.diag(jnp.where(active, 0.0, 1.0))
+    lam, vec = jnp.linalg.eigh(hess)
+    scale = jnp.max(jnp.abs(lam))
+    inv = jnp.where(jnp.abs(lam) > 1e-11 * scale, 1.0 / lam, 0.0)
+    return -(vec * inv) @ (vec.T @ grad), (vec * inv) @ vec.T, grad
+
+
+def _newton(curve, t, q, steps, max_step):
+    def body(_, t):
+        delta = _newton_direction(curve, t, q)[0]
+        delta = jnp.clip(delta, -max_step, max_step)
+        return t + jnp.where(jnp.isfinite(delta), delta, 0.0)
+
+    t = jax.lax.fori_loop(0, steps, body, t)
+    # Unused slots follow bounce 0 so padded entries stay harmless.
+    return jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
+
+
+@partial(jax.jit, static_argnames=("steps", "iterates", "resonance_order"))
+def _solve_batch(curve, t, q, steps, max_step, iterates, resonance_order):
+    """Cold Newton refinement of a batch of seeds, then their orbit data."""
+
+    def one(t, q):
+        t = _newton(curve, t, q, steps, max_step)
+        return (t,) + orbit_data(curve, t, q, iterates, resonance_order) + (_winding(t, q),)
+
+    return jax.vmap(one)(t, q)
+
+
+# ----------------------------------------------------------------------------------------------
+# Global search
+
+
+@partial(jax.jit, static_argnums=1)
+def _samples(curve, n):
+    t = 2.0 * jnp.pi * jnp.arange(n) / n
+    jets = jax.vmap(lambda s: jnp.stack([curve(s), jax.jacfwd(curve)(s)]))(t)
+    return t, jets[:, 0], jets[:, 1]
+
+
+def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray, np.ndarray]:
+    """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
+    t_fine, _, vel = (np.asarray(a) for a in _samples(curve, n * oversample))
+    speed = np.linalg.norm(vel, axis=1)
+    s = np.concatenate([[0.0], np.cumsum(0.5 * (speed + np.roll(speed, -1)))]) * (
+        2 * np.pi / (n * oversample))
+    t_ext = np.concatenate([t_fine, [2 * np.pi]])
+    t_grid = np.interp(np.arange(n) * s[-1] / n, s, t_ext)
+    points = np.asarray(jax.vmap(curve)(jnp.asarray(t_grid)))
+    return t_grid, points
+
+
+def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, list[np.ndarray]]:
+    """Discrete Birkhoff function by max-plus dynamic programming.
+
+    B[s] = max over closed paths of q chords through grid points starting at point s and
+    advancing (counter-clockwise, each step 1..n−1 points) p full turns of the summed chord
+    lengths. Returns B and the back-pointers for :func:`birkhoff_path`.
+    """
+    n = points.shape[0]
+    dist = np.linalg.norm(points[None, :, :] - points[:, None, :], axis=-1)
+    ks = np.arange(1, n)
+    chord = dist[np.arange(n)[:, None], (np.arange(n)[:, None] + ks[None, :]) % n]  # (n, n−1)
+    target = p * n
+    pos = (np.arange(n)[:, None] + np.arange(target + 1)[None, :]) % n
+    gain = chord[pos]  # (start, advance, step−1)
+    value = np.full((n, target + 1), -np.inf)
+    value[:, 0] = 0.0
+    pad = np.full((n, n - 1, n - 1), -np.inf)
+    back = []
+    for _ in range(q):
+        leave = np.concatenate([pad, value[:, :, None] + gain], axis=1)
+        s0, s1, s2 = leave.strides
+        view = as_strided(leave[:, n - 2:, :], shape=(n, target + 1, n - 1),
+                          strides=(s0, s1, s2 - s1), writeable=False)
+        arg = np.argmax(view, axis=2)
+        value = np.take_along_axis(view, arg[..., None], axis=2)[..., 0]
+        back.append(arg)
+    return value[:, target], back
+
+
+def birkhoff_path(back: list[np.ndarray], start: int, p: int, n: int) -> np.ndarray:
+    """Grid indices of the optimal path from ``start`` (q entries, cyclically ordered)."""
+    advance, out = p * n, []
+    for arg in reversed(back):
+        advance -= int(arg[start, advance]) + 1
+        out.append((start + advance) % n)
+    return np.asarray(out[::-1])
+
+
+def _local_extrema(values: np.ndarray, maxima: bool) -> np.ndarray:
+    v = values if maxima else -values
+    left, right = np.roll(v, 1), np.roll(v, -1)
+    idx = np.nonzero((v >= left) & (v >= right) & np.isfinite(v))[0]
+    return idx[np.argsort(-v[idx], kind="stable")]
+
+
+def _distinct_paths(back, starts, p, n, count):
+    """Up to ``count`` grid paths from the given starts that are not the same orbit."""
+    keys, paths = [], []
+    for s in starts:
+        path = birkhoff_path(back, int(s), p, n)
+        key = np.sort(path)
+        if any(np.all(np.abs(key - k) <= 1) for k in keys):
+            continue
+        keys.append(key)
+        paths.append(path)
+        if len(paths) == count:
+            break
+    return paths
+
+
+def _lift(t_path: np.ndarray, p: int) -> np.ndarray:
+    """Bounce parameters made monotone (t_{i+1} > t_i, total advance 2πp)."""
+    steps = np.mod(np.diff(np.concatenate([t_path, t_path[:1]])), 2 * np.pi)
+    return t_path[0] + np.concatenate([[0.0], np.cumsum(steps[:-1])])
+
+
+def _chord_leaves(poly: np.ndarray, t_poly: np.ndarray, a: np.ndarray, b: np.ndarray,
+                  ta: float, tb: float) -> bool:
+    """Whether the open segment a→b meets the boundary polygon or lies outside it."""
+    n = poly.shape[0]
+    e0, e1 = poly, np.roll(poly, -1, axis=0)
+    dt = 2 * np.pi / n
+    near = lambda tv: np.minimum(np.mod(t_poly - tv, 2 * np.pi),  # noqa: E731
+                                 np.mod(tv - t_poly, 2 * np.pi)) < 2.5 * dt
+    keep = ~(near(ta) | near(tb) | near(np.mod(ta - dt, 2 * np.pi)) | near(np.mod(tb - dt, 2 * np.pi)))
+    d = b - a
+    f = e1 - e0
+    denom = d[0] * f[:, 1] - d[1] * f[:, 0]
+    r = e0 - a
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = (r[:, 0] * f[:, 1] - r[:, 1] * f[:, 0]) / denom
+        v = (r[:, 0] * d[1] - r[:, 1] * d[0]) / denom
+    hit = keep & (denom != 0) & (u > 1e-9) & (u < 1 - 1e-9) & (v >= 0) & (v <= 1)
+    if np.any(hit):
+        return True
+    mid = 0.5 * (a + b)
+    ang = np.arctan2(poly[:, 1] - mid[1], poly[:, 0] - mid[0])
+    winding = np.sum(np.angle(np.exp(1j * (np.roll(ang, -1) - ang)))) / (2 * np.pi)
+    return abs(winding) < 0.5
+
+
+def orbit_leaves_domain(curve: Curve, t: np.ndarray, q: int, resolution: int = 1024) -> bool:
+    """Whether some chord of the orbit crosses the boundary or runs outside the table."""
+    t_poly = 2 * np.pi * np.arange(resolution) / resolution
+    poly = np.asarray(jax.vmap(curve)(jnp.asarray(t_poly)))
+    pts = np.asarray(jax.vmap(curve)(jnp.asarray(t[:q])))
+    tq = np.mod(np.asarray(t[:q]), 2 * np.pi)
+    for i in range(q):
+        j = (i + 1) % q
+        if _chord_leaves(poly, t_poly, pts[i], pts[j], tq[i], tq[j]):
+            return True
+    return False
+
+
+def _seed_batch(curve, max_period, grid, candidates):
+    """Seeds (padded t, q, p, branch) from the max-plus search for every rotation number."""
+    t_grid, points = boundary_grid(curve, grid)
+    seeds = []
+    for p, q in rotation_numbers(max_period):
+        table, back = birkhoff_table(points, p, q)
+        for branch, maxima in ((MAX, True), (MINIMAX, False)):
+            starts = _local_extrema(table, maxima)
+            for path in _distinct_paths(back, starts, p, grid, candidates):
+                seeds.append((p, q, branch, _lift(t_grid[path], p)))
+    return seeds
+
+
+def _torus_candidates(curve, n):
+    """Grid cells of the torus where both ⟨d, T(t₁)⟩ and ⟨d, T(t₂)⟩ change sign (t₁ < t₂)."""
+    t, pts, vel = (np.asarray(a) for a in _samples(curve, n))
+    tan = vel / np.linalg.norm(vel, axis=1, keepdims=True)
+    d = pts[None, :, :] - pts[:, None, :]
+    f1 = np.einsum("ijk,ik->ij", d, tan)
+    f2 = np.einsum("ijk,jk->ij", d, tan)
+
+    def changes(f):
+        corners = np.stack([f, np.roll(f, -1, 0), np.roll(f, -1, 1), np.roll(np.roll(f, -1, 0), -1, 1)])
+        return (corners.min(0) < 0) & (corners.max(0) > 0)
+
+    i, j = np.nonzero(changes(f1) & changes(f2))
+    gap = np.minimum((j - i) % n, (i - j) % n)
+    keep = (i < j) & (gap > 2)
+    h = 2 * np.pi / n
+    return np.stack([t[i[keep]] + h / 2, t[j[keep]] + h / 2], axis=1)
+
+
+def _batch_pad(arrays, size, fill_index=0):
+    return [np.concatenate([a, np.repeat(a[fill_index:fill_index + 1], size - len(a), 0)])
+            if len(a) < size else a for a in arrays]
+
+
+def _chunk_size(max_period: int, candidates: int) -> int:
+    """Batch size of the cold Newton solve: fixed per (Q, candidates) so it compiles once."""
+    n = 2 * candidates * len(rotation_numbers(max_period))
+    return int(16 * np.ceil(n / 16))
+
+
+def _solve_seeds(curve, t_seeds, q_seeds, slots, chunk, iterates, resonance_order, steps,
+                 max_step):
+    count = len(t_seeds)
+    t = np.zeros((count, slots))
+    for k, ts in enumerate(t_seeds):
+        t[k, :len(ts)] = ts
+        t[k, len(ts):] = ts[0]
+    qs = np.asarray(q_seeds, dtype=np.int32)
+    outs = []
+    for lo in range(0, count, chunk):
+        tc, qc = _batch_pad([t[lo:lo + chunk], qs[lo:lo + chunk]], chunk)
+        out = _solve_batch(curve, jnp.asarray(tc), jnp.asarray(qc), steps, max_step, iterates,
+                           resonance_order)
+        outs.append(jax.tree_util.tree_map(lambda o: np.asarray(o)[:min(chunk, count - lo)], out))
+    return jax.tree_util.tree_map(lambda *xs: np.concatenate(xs), *outs)
+
+
+def _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite, wrong_index):
+    if not finite:
+        return Status.nonfinite
+    if residual > RESIDUAL_TOL:
+        return Status.orbit_not_converged
+    if leaves or not inward:
+        return Status.orbit_leaves_domain
+    if not ordered or abs(winding - p) > 1e-6 or wrong_index:
+        return Status.branch_changed
+    if degenerate:
+        return Status.degenerate
+    return Status.ok
+
+
+def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int = 64,
+                bouncing_grid: int = 128, candidates: int = 3, resonance_order: int = 4,
+                check_domain: bool | None = None, newton_steps: int = 40) -> OrbitSet:
+    """Cold solve: every bouncing ball and the max and min-max orbit of each p/q, q ≤ max_period.
+
+    ``grid`` boundary points for the max-plus search, ``bouncing_grid`` per torus axis for the
+    bouncing-ball search, ``candidates`` distinct seeds refined per orbit kind (near-ties are
+    resolved by refined lengths and flagged), ``iterates`` M for det(I − Pᵐ) and Maslov indices.
+    ``check_domain`` tests every chord against the boundary (default: only if the table is not
+    strictly convex). Not jitted (global search); see :func:`refine_orbits` for the warm path.
+    """
+    if max_period < 2:
+        raise ValueError(f"max_period: expected an integer ≥ 2, got {max_period}")
+    if check_domain is None:
+        check_domain = not _polygon_convex(curve, bouncing_grid)
+    slots = max_period
+    chunk = _chunk_size(max_period, candidates)
+    rows = []
+
+    # Birkhoff orbits.
+    seeds = _seed_batch(curve, max_period, grid, candidates)
+    out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds], slots, chunk,
+                       iterates, resonance_order, newton_steps, 2 * np.pi / grid)
+    solved = [_row(curve, out, k, seeds[k][0], seeds[k][1], seeds[k][2], check_domain, iterates)
+              for k in range(len(seeds))]
+    for p, q in rotation_numbers(max_period):
+        for branch in (MAX, MINIMAX):
+            group = [r for r in solved if r["p"] == p and r["q"] == q and r["branch"] == branch]
+            rows.append(_pick(group, branch))
+
+    # Bouncing balls.
+    for row in _bouncing_balls(curve, bouncing_grid, slots, chunk, iterates, resonance_order,
+                               newton_steps, check_domain):
+        if not any(r["q"] == 2 and _same_orbit(r, row) for r in rows):
+            rows.append(row)
+    return _to_set(rows)
+
+
+def _row(curve, out, k, p, q, branch, check_domain, iterates):
+    (t, jets, length, mono, tr, kind, angle, lyap, dets, residual, index, degenerate, resonant,
+     ordered, inward, winding) = jax.tree_util.tree_map(lambda o: o[k], out)
+    maslov = iterate_maslov(jets, q, iterates)
+    finite = bool(np.all(np.isfinite(t)) and np.isfinite(length) and np.all(np.isfinite(mono)))
+    leaves = bool(check_domain and finite and orbit_leaves_domain(curve, t, q))
+    wanted = 0 if branch == MAX else 1
+    wrong_index = (branch != CRITICAL) and int(index) != wanted and not bool(degenerate)
+    status = _status_of(float(residual), bool(ordered), float(winding), p, bool(inward), leaves,
+                        bool(degenerate), finite, wrong_index)
+    return dict(p=p, q=q, branch=branch, t=t, length=float(length),
+                monodromy=mono, trace=float(tr), kind=int(kind), angle=float(angle),
+                lyapunov=float(lyap), det_iterates=dets, maslov=maslov, reflections=q,
+                residual=float(residual), hessian_index=int(index), status=int(status),
+                degenerate=bool(degenerate), resonant=bool(resonant), near_tie=False)
+
+
+def _same_orbit(a, b, tol=1e-7):
+    if a["q"] != b["q"] or abs(a["length"] - b["length"]) > tol * max(1.0, a["length"]):
+        return False
+    ta = np.sort(np.mod(a["t"][:a["q"]], 2 * np.pi))
+    tb = np.sort(np.mod(b["t"][:b["q"]], 2 * np.pi))
+    diff = np.abs(np.angle(np.exp(1j * (ta[:, None] - tb[None, :]))))
+    return bool(np.all(diff.min(axis=1) < 1e-5))
+
+
+def _pick(group, branch):
+    """Best refined candidate: longest max-type / shortest min-max-type; flags near-ties."""
+    good = [r for r in group if r["status"] in (Status.ok, Status.degenerate)]
+    pool = good or group
+    sign = 1.0 if branch == MAX else -1.0
+    pool = sorted(pool, key=lambda r: -sign * r["length"])
+    best = dict(pool[0])
+    for other in pool[1:]:
+        if any(other is g for g in good) and not _same_orbit(best, other) and abs(
+                other["length"] - best["length"]) < NEAR_TIE_TOL * best["length"]:
+            best["near_tie"] = not best["degenerate"]
+    return best
+
+
+def _polygon_convex(curve, n):
+    """Whether consecutive unit tangents at n nodes always turn left (strict convexity proxy)."""
+    _, _, vel = (np.asarray(a) for a in _samples(curve, n))
+    nxt = np.roll(vel, -1, axis=0)
+    return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
+
+
+def _bouncing_balls(curve, n, slots, chunk, iterates, resonance_order, steps, check_domain):
+    seeds = _torus_candidates(curve, n)
+    if len(seeds) == 0:
+        return []
+    seeds = seeds[:512]
+    out = _solve_seeds(curve, list(seeds), [2] * len(seeds), slots, chunk, iterates,
+                       resonance_order, steps, 2 * np.pi / n)
+    rows = []
+    for k in range(len(seeds)):
+        row = _row(curve, out, k, 1, 2, CRITICAL, check_domain, iterates)
+        if row["status"] in (Status.orbit_not_converged, Status.nonfinite):
+            continue
+        if row["status"] == Status.branch_changed:  # winding check is meaningless for q = 2
+            row["status"] = int(Status.degenerate if row["degenerate"] else Status.ok)
+        if any(_same_orbit(row, r) for r in rows):
+            continue
+        # A one-parameter family (the circle's diameters) is reported once.
+        if row["degenerate"] and any(r["degenerate"] and abs(r["length"] - row["length"])
+                                     < 1e-9 * row["length"] for r in rows):
+            continue
+        rows.append(row)
+    return sorted(rows, key=lambda r: -r["length"])
+
+
+def _to_set(rows) -> OrbitSet:
+    field = lambda name, dtype=None: np.asarray([r[name] for r in rows], dtype=dtype)  # noqa: E731
+    return OrbitSet(
+        p=field("p", np.int32), q=field("q", np.int32), branch=field("branch", np.int32),
+        t=field("t", np.float64), length=field("length"), monodromy=field("monodromy"),
+        trace=field("trace"), kind=field("kind", np.int32), angle=field("angle"),
+        lyapunov=field("lyapunov"), det_iterates=field("det_iterates"),
+        maslov=field("maslov", np.int32), reflections=field("reflections", np.int32),
+        residual=field("residual"), hessian_index=field("hessian_index", np.int32),
+        status=field("status", np.int32), degenerate=field("degenerate", bool),
+        resonant=field("resonant", bool), near_tie=field("near_tie", bool))
+
+
+# ----------------------------------------------------------------------------------------------
+# Warm path
+
+
+@partial(jax.jit, static_argnames=("newton_steps", "resonance_order"))
+def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 3,
+                  resonance_order: int = 4) -> OrbitSet:
+    """Warm path: Newton from the tracked bounce parameters, implicit derivatives (jittable).
+
+    Lengths are W at the critical point (exact gradient by the envelope theorem); the bounce
+    parameters carry the implicit-function derivative −H⁻¹∂_θ∇W through one correction step
+    with the (pseudo-)inverse Hessian held constant, so monodromies, traces and angles have
+    exact first derivatives. Status per orbit: not converged, left its branch (Hessian index
+    or cyclic order changed), chord leaving the table (an end with sin θ ≤ 0), degenerate.
+    Maslov indices are kept from ``orbits`` (they change only through a degeneracy).
+    """
+    iterates = orbits.det_iterates.shape[1]
+
+    def one(t, q, index, maslov, branch):
+        t_star = jax.lax.stop_gradient(_newton(curve, jax.lax.stop_gradient(t), q, newton_steps,
+                                               0.5))
+        _, h_pinv, grad = _newton_direction(curve, t_star, q)
+        t_new = t_star - jax.lax.stop_gradient(h_pinv) @ grad
+        (_, length, mono, tr, kind, angle, lyap, dets, residual, new_index, degenerate, resonant,
+         ordered, inward) = orbit_data(curve, t_new, q, iterates, resonance_order)
+        changed = (~ordered) | ((branch != CRITICAL) & (new_index != index) & (~degenerate))
+        finite = jnp.isfinite(length) & jnp.all(jnp.isfinite(mono))
+        status = jnp.where(~finite, Status.nonfinite,
+                           jnp.where(residual > RESIDUAL_TOL, Status.orbit_not_converged,
+                                     jnp.where(~inward, Status.orbit_leaves_domain,
+                                               jnp.where(changed, Status.branch_changed,
+                                                         jnp.where(degenerate, Status.degenerate,
+                                                                   Status.ok)))))
+        return (t_new, length, mono, tr, kind, angle, lyap, dets, maslov, residual, new_index,
+                status.astype(jnp.int32), degenerate, resonant)
+
+    (t, length, mono, tr, kind, angle, lyap, dets, maslov, residual, index, status, degenerate,
+     resonant) = jax.vmap(one)(orbits.t, orbits.q, orbits.hessian_index, orbits.maslov,
+                               orbits.branch)
+    return orbits._replace(t=t, length=length, monodromy=mono, trace=tr, kind=kind, angle=angle,
+                           lyapunov=lyap, det_iterates=dets, maslov=maslov, residual=residual,
+                           hessian_index=index, status=status, degenerate=degenerate,
+                           resonant=resonant)
+
+
+# ----------------------------------------------------------------------------------------------
+# Identity re-check, bouncing-ball endpoint data, multiplicities, class hypotheses
+
+
+def same_orbits(curve: Curve, tracked: OrbitSet, fresh: OrbitSet | None = None,
+                rtol: float = 1e-8) -> tuple[np.ndarray, OrbitSet]:
+    """Compare tracked orbits with a fresh global search on ``curve``.
+
+    Per tracked orbit: ``branch_changed`` if the fresh max (min-max) orbit of the same p/q is a
+    different orbit (another length or other bounce points), e.g. after a bifurcation made the
+    tracked orbit no longer the longest; for extra bouncing balls, if no fresh bouncing ball
+    matches. Returns (status codes, fresh OrbitSet).
+    """
+    tracked = OrbitSet(*(np.asarray(f) for f in tracked))
+    if fresh is None:
+        fresh = find_orbits(curve, max_period=int(tracked.t.shape[1]),
+                            iterates=int(tracked.det_iterates.shape[1]))
+    fresh = OrbitSet(*(np.asarray(f) for f in fresh))
+    rows_t, rows_f = _rows(tracked), _rows(fresh)
+    out = []
+    for r in rows_t:
+        if r["branch"] == CRITICAL:
+            pool = [f for f in rows_f if f["q"] == 2]
+        else:
+            pool = [f for f in rows_f if (f["p"], f["q"], f["branch"]) == (r["p"], r["q"],
+                                                                             r["branch"])]
+        match = any(_same_orbit(r, f, rtol) for f in pool)
+        out.append(int(Status.ok if match else Status.branch_changed))
+    return np.asarray(out, dtype=np.int32), fresh
+
+
+def _rows(orbits: OrbitSet) -> list[dict]:
+    return [{name: (np.asarray(getattr(orbits, name))[k]) for name in OrbitSet._fields}
+            for k in range(orbits.size)]
+
+
+def endpoint_graphs(curve: Curve, orbits: OrbitSet) -> np.ndarray:
+    """For bouncing balls: (f'', f''', f'''') of the boundary as a graph over the tangent line
+    at each end, shape (K, 2, 3); NaN for orbits that are not bouncing balls."""
+    from .geometry import boundary_graph
+
+    graph = jax.jit(jax.vmap(lambda s: boundary_graph(curve, s)))
+    out = np.full((orbits.size, 2, 3), np.nan)
+    for k in range(orbits.size):
+        if int(orbits.q[k]) == 2:
+            out[k] = np.asarray(graph(jnp.asarray(orbits.t[k][:2])))
+    return out
+
+
+def mirror_curvatures(chord: Array, angle: Array) -> tuple[Array, Array]:
+    """The two curvatures κ of a symmetric two-mirror orbit (κ₁ = κ₂ = κ) with chord length d
+    and rotation angle α: (1 − dκ)² = cos²(α/2), so κ = (1 ∓ cos(α/2))/d.
+
+    From tr P = 4g₁g₂ − 2 = 2 cos α with g_i = 1 − dκ_i (two-mirror cavity; common practice,
+    e.g. A. E. Siegman, "Lasers", 1986, from memory).
+    """
+    c = jnp.cos(angle / 2.0)
+    return (1.0 - c) / chord, (1.0 + c) / chord
+
+
+def length_multiplicity(orbits: OrbitSet, max_length: float | None = None,
+                        rtol: float = 1e-9) -> np.ndarray:
+    """For each orbit, how many distinct periodic orbits (iterates m·L of every found orbit
+    included, time reverses of q ≥ 3 orbits counted) share its primitive length within rtol,
+    considering lengths up to ``max_length`` (default: the longest found)."""
+    lengths = np.asarray(orbits.length)
+    qs = np.asarray(orbits.q)
+    iterates = int(np.asarray(orbits.det_iterates).shape[1])
+    bound = max_length if max_length is not None else float(np.max(lengths)) * (1 + rtol)
+    spectrum = []
+    for k in range(orbits.size):
+        for m in range(1, iterates + 1):
+            if m * lengths[k] <= bound * (1 + rtol):
+                spectrum.extend([(k, m, m * lengths[k])] * (1 if qs[k] == 2 else 2))
+    out = np.zeros(orbits.size, dtype=int)
+    for k in range(orbits.size):
+        out[k] = sum(1 for _, _, ell in spectrum if abs(ell - lengths[k]) <= rtol * lengths[k])
+    return out
+
+
+def rotation_lift(orbits: OrbitSet) -> np.ndarray:
+    """Natural-lift rotation angle ω ∈ (0, 2π) of elliptic orbits (NaN otherwise): α when the
+    second iterate's Maslov index is 1, 2π − α when it is 3 (μ₂ = 2⌊2ω/2π⌋ + 1)."""
+    alpha = np.asarray(orbits.angle)
+    maslov = np.asarray(orbits.maslov)
+    if maslov.shape[1] < 2:
+        return alpha
+    return np.where(maslov[:, 1] >= 3, 2 * np.pi - alpha, alpha)
+
+
+class Hypotheses(NamedTuple):
+    """Checklist for a designated bouncing ball; each entry (passed, detail text)."""
+
+    nondegenerate: tuple[bool, str]
+    non_resonant: tuple[bool, str]
+    third_derivative: tuple[bool, str]
+    simple_length: tuple[bool, str]
+
+    def passed(self) -> bool:
+        return all(v[0] for v in self)
+
+
+def class_hypotheses(curve: Curve, orbits: OrbitSet, index: int, resonance_order: int = 4,
+                     length_bound: float | None = None, tol: float = 1e-8) -> Hypotheses:
+    """Nondegenerate (det(I − Pᵐ) ≠ 0, m ≤ M), non-resonant (mα ∉ 2πℤ, m ≤ order), boundary
+    graph third derivative nonzero at both ends, primitive length of multiplicity one among
+    all found orbits and their iterates up to ``length_bound`` (default: M times its length)."""
+    dets = np.asarray(orbits.det_iterates[index])
+    nondeg = bool(np.all(np.abs(dets) > tol))
+    alpha = float(orbits.angle[index])
+    if np.isfinite(alpha):
+        gaps = [abs(np.sin(m * alpha / 2)) for m in range(1, resonance_order + 1)]
+        nonres = (bool(min(gaps) > RESONANCE_TOL),
+                  f"α/2π = {alpha / (2 * np.pi):.10f}, min_m≤{resonance_order} |sin(mα/2)| = "
+                  f"{min(gaps):.3g}")
+    else:
+        nonres = (True, f"not elliptic ({KINDS[int(orbits.kind[index])]}): no rotation resonance")
+    graphs = endpoint_graphs(curve, orbits.select([index]))[0]
+    third = graphs[:, 1]
+    bound = length_bound or float(orbits.length[index]) * orbits.det_iterates.shape[1]
+    mult = length_multiplicity(orbits, bound)[index]
+    return Hypotheses(
+        (nondeg, "min_m |det(I − Pᵐ)| = " + f"{np.min(np.abs(dets)):.3g}"),
+        nonres,
+        (bool(np.all(np.abs(third) > tol)), f"f''' = {third[0]:.6g}, {third[1]:.6g}"),
+        (bool(mult == 1), f"multiplicity {mult} among found orbits up to length {bound:.6g}"),
+    )
+
+
+def polar_angles(curve: Curve, t: Array) -> np.ndarray:
+    """Polar angles in [0, 2π) of the bounce points about the origin."""
+    pts = np.asarray(jax.vmap(curve)(jnp.asarray(t)))
+    return np.mod(np.arctan2(pts[:, 1], pts[:, 0]), 2 * np.pi)
+
+
+__all__ = ["OrbitSet", "BRANCHES", "KINDS", "rotation_numbers", "find_orbits", "refine_orbits",
+           "same_orbits", "orbit_data", "boundary_grid", "birkhoff_table", "birkhoff_path",
+           "orbit_leaves_domain", "endpoint_graphs", "mirror_curvatures", "length_multiplicity",
+           "rotation_lift", "class_hypotheses", "Hypotheses", "polar_angles"]
