@@ -13,6 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Callable, NamedTuple
 
+import jax
 import jax.numpy as jnp
 
 from objectives import geometry, heat
@@ -110,3 +111,50 @@ for _b in heat.BOUNDARIES:
     register(InvariantFamily(
         f"heat_{_b}", f"{_b.capitalize()} heat-trace coefficients c₀..c_order",
         _heat(_b), (("order", heat.MAX_ORDER), ("resolution", 256))))
+
+
+def _symmetric_orbits(max_period, all_rotations, kinds, steps, tol, degenerate_tol, free):
+    """Marked symmetric p/q orbit lengths of a mirror-symmetric domain (x-axis mirror)."""
+    from objectives import symmetric_orbits as so
+
+    if not isinstance(max_period, int) or max_period < 2:
+        raise ConfigError(f"invariants.symmetric_orbits.max_period: expected an integer >= 2, "
+                          f"got {max_period!r}")
+    if not kinds or any(k not in ("A", "B") for k in kinds):
+        raise ConfigError("invariants.symmetric_orbits.kinds: expected a non-empty list of "
+                          "\"A\" (bounce on the axis at t = 0) and \"B\" (the other symmetric orbit)")
+    orbits = so.orbit_list(max_period, bool(all_rotations), tuple(kinds))
+
+    def solve_all(curve, guesses, n_steps):
+        lengths, sols, codes = so.marked_lengths(curve, orbits, guesses, n_steps, tol,
+                                                 degenerate_tol, bool(free))
+        return lengths, tuple(s.u for s in sols), codes
+
+    cold = jax.jit(lambda curve: solve_all(curve, None, 6 * steps))
+
+    def init(curve):
+        return cold(curve)[1]
+
+    def evaluate(curve, state):
+        lengths, new_state, codes = solve_all(curve, state, steps)
+        # a warm start that jumps by a sizeable fraction of the bounce spacing is another orbit
+        jumped = [jnp.any(jnp.abs(u - u0) > jnp.pi / (4 * o.q)) if u.size else False
+                  for u, u0, o in zip(new_state, state, orbits)]
+        codes = jnp.where(jnp.asarray(jumped), code(Status.branch_changed), codes)
+        return lengths, new_state, finite_or(lengths, jnp.max(codes))
+
+    def recheck(curve, state):
+        fresh = cold(curve)[1]
+        same = all(bool(jnp.all(jnp.abs(a - b) < 1e-6)) for a, b in zip(fresh, state))
+        return state, code(Status.ok if same else Status.branch_changed)
+
+    return Evaluator(tuple(o.label for o in orbits), init, evaluate, recheck)
+
+
+register(InvariantFamily(
+    "symmetric_orbits",
+    "lengths of the symmetric p/q billiard orbits of a mirror-symmetric domain (marked length "
+    "spectrum); q = 2..max_period, kinds A (bounce at t = 0) and B",
+    _symmetric_orbits,
+    (("max_period", 5), ("all_rotations", False), ("kinds", ("A", "B")), ("steps", 8),
+     ("tol", 1e-9), ("degenerate_tol", 1e-7), ("free", False))))
