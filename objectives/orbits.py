@@ -154,8 +154,7 @@ def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
     for m in range(1, iterates + 1):
         n = m * q
         idx = np.arange(n) % q
-        rep = billiard.Jets(jnp.asarray(pts[idx]), jnp.asarray(vel[idx]), jnp.asarray(acc[idx]))
-        hess = np.asarray(_arclength_hessian_np(rep, n))
+        hess = _arclength_hessian_np((pts[idx], vel[idx], acc[idx]), n)
         lam = np.linalg.eigvalsh(hess)
         scale = np.max(np.abs(lam)) + 1.0
         out.append(int(np.sum(lam < -DEGENERATE_TOL * scale)))
@@ -262,26 +261,63 @@ def _newton_direction(curve, t, q):
     return -(vec * inv) @ (vec.T @ grad), (vec * inv) @ vec.T, grad
 
 
-def _newton(curve, t, q, steps, max_step):
-    def body(_, t):
-        delta = _newton_direction(curve, t, q)[0]
-        delta = jnp.clip(delta, -max_step, max_step)
-        return t + jnp.where(jnp.isfinite(delta), delta, 0.0)
+def _grad_hess(curve, t, q):
+    jets = billiard.bounce_jets(curve, t)
+    chords = billiard.chords_from_jets(jets, q)
+    grad = billiard.length_gradient_from(jets, chords, q)
+    hess = billiard.length_hessian_from(jets, chords, q)
+    active = jnp.arange(t.shape[0]) < q
+    # Padded slots: decoupled, below every active eigenvalue, zero gradient.
+    pad = -(1.0 + 2.0 * jnp.max(jnp.abs(hess)))
+    return grad, hess + jnp.diag(jnp.where(active, 0.0, pad))
 
-    t = jax.lax.fori_loop(0, steps, body, t)
+
+def _newton(curve, t, q, steps, max_step, target=-1, tol=1e-14):
+    """Newton's method on ∇W = 0 that follows the wanted Morse type (eigenvector following).
+
+    In the Hessian eigenbasis (λ_i ascending, gradient components c_i) the step is
+    δ_i = −c_i / (σ_i (|λ_i| + ε)), with σ_i the wanted sign of the curvature: all −1 for a
+    maximum (``target`` 0), −1 except +1 on the largest eigenvalue for a min-max orbit
+    (``target`` 1), sign(λ_i) for any critical point (``target`` −1). Near a nondegenerate orbit
+    of the wanted type this is Newton's method; elsewhere it climbs (descends) where it should,
+    so a seed is not captured by a critical point of the wrong type. ε = 10⁻¹⁰·max|λ| acts as a
+    pseudo-inverse along orbit families (zero eigenvalues, zero gradient). Steps are clipped to
+    ``max_step``; the loop stops after ``steps`` steps or once the step is below ``tol``.
+    """
+    size = t.shape[0]
+    rank = jnp.arange(size)
+
+    def body(state):
+        i, t, _ = state
+        grad, hess = _grad_hess(curve, t, q)
+        lam, vec = jnp.linalg.eigh(hess)
+        # Padded slots have the lowest eigenvalues and zero gradient; they never matter.
+        wanted = jnp.where(target == 0, -1.0,
+                           jnp.where(target == 1, jnp.where(rank == size - 1, 1.0, -1.0),
+                                     jnp.sign(lam)))
+        eps = 1e-10 * jnp.max(jnp.abs(lam))
+        delta = -(vec * (1.0 / (wanted * (jnp.abs(lam) + eps)))) @ (vec.T @ grad)
+        delta = jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
+        return i + 1, t + delta, jnp.max(jnp.abs(delta))
+
+    def going(state):
+        i, _, size = state
+        return (i < steps) & (size > tol)
+
+    t = jax.lax.while_loop(going, body, (0, t, jnp.inf))[1]
     # Unused slots follow bounce 0 so padded entries stay harmless.
-    return jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
+    return jnp.where(rank < q, t, t[0])
 
 
 @partial(jax.jit, static_argnames=("steps", "iterates", "resonance_order"))
-def _solve_batch(curve, t, q, steps, max_step, iterates, resonance_order):
+def _solve_batch(curve, t, q, target, steps, max_step, iterates, resonance_order):
     """Cold Newton refinement of a batch of seeds, then their orbit data."""
 
-    def one(t, q):
-        t = _newton(curve, t, q, steps, max_step)
+    def one(t, q, target):
+        t = _newton(curve, t, q, steps, max_step, target)
         return (t,) + orbit_data(curve, t, q, iterates, resonance_order) + (_winding(t, q),)
 
-    return jax.vmap(one)(t, q)
+    return jax.vmap(one)(t, q, target)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -295,6 +331,11 @@ def _samples(curve, n):
     return t, jets[:, 0], jets[:, 1]
 
 
+@jax.jit
+def _points(curve, t):
+    return jax.vmap(curve)(t)
+
+
 def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray, np.ndarray]:
     """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
     t_fine, _, vel = (np.asarray(a) for a in _samples(curve, n * oversample))
@@ -303,7 +344,7 @@ def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray
         2 * np.pi / (n * oversample))
     t_ext = np.concatenate([t_fine, [2 * np.pi]])
     t_grid = np.interp(np.arange(n) * s[-1] / n, s, t_ext)
-    points = np.asarray(jax.vmap(curve)(jnp.asarray(t_grid)))
+    points = np.asarray(_points(curve, jnp.asarray(t_grid)))
     return t_grid, points
 
 
@@ -398,15 +439,24 @@ def _chord_leaves(poly: np.ndarray, t_poly: np.ndarray, a: np.ndarray, b: np.nda
     return abs(winding) < 0.5
 
 
-def orbit_leaves_domain(curve: Curve, t: np.ndarray, q: int, resolution: int = 1024) -> bool:
-    """Whether some chord of the orbit crosses the boundary or runs outside the table."""
-    t_poly = 2 * np.pi * np.arange(resolution) / resolution
-    poly = np.asarray(jax.vmap(curve)(jnp.asarray(t_poly)))
-    pts = np.asarray(jax.vmap(curve)(jnp.asarray(t[:q])))
+DOMAIN_RESOLUTION = 1024
+"""Boundary polygon nodes used to test whether chords stay inside the table."""
+
+
+def boundary_polygon(curve: Curve, resolution: int = DOMAIN_RESOLUTION):
+    """(t nodes, polygon points) of the boundary for :func:`orbit_leaves_domain`."""
+    t, pts, _ = _samples(curve, resolution)
+    return np.asarray(t), np.asarray(pts)
+
+
+def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> bool:
+    """Whether some chord of the orbit (bounce ``points`` at parameters ``t``) crosses the
+    boundary polygon or runs outside the table."""
+    t_poly, poly = polygon
     tq = np.mod(np.asarray(t[:q]), 2 * np.pi)
     for i in range(q):
         j = (i + 1) % q
-        if _chord_leaves(poly, t_poly, pts[i], pts[j], tq[i], tq[j]):
+        if _chord_leaves(poly, t_poly, points[i], points[j], tq[i], tq[j]):
             return True
     return False
 
@@ -419,6 +469,10 @@ def _seed_batch(curve, max_period, grid, candidates):
         table, back = birkhoff_table(points, p, q)
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
             starts = _local_extrema(table, maxima)
+            # Only extrema whose discrete value competes with the best can win after refinement.
+            margin = 0.02 * (np.max(table) - np.min(table)) + 1e-12
+            best = table[starts[0]]
+            starts = [s for s in starts if abs(table[s] - best) <= margin]
             for path in _distinct_paths(back, starts, p, grid, candidates):
                 seeds.append((p, q, branch, _lift(t_grid[path], p)))
     return seeds
@@ -439,8 +493,15 @@ def _torus_candidates(curve, n):
     i, j = np.nonzero(changes(f1) & changes(f2))
     gap = np.minimum((j - i) % n, (i - j) % n)
     keep = (i < j) & (gap > 2)
+    cells = []
+    for a, b in zip(i[keep], j[keep]):
+        # Neighbouring cells bracket the same crossing: one seed each.
+        if not any(min((a - c) % n, (c - a) % n) <= 1 and min((b - d) % n, (d - b) % n) <= 1
+                   for c, d in cells):
+            cells.append((a, b))
+    cells = np.asarray(cells, dtype=int).reshape(-1, 2)
     h = 2 * np.pi / n
-    return np.stack([t[i[keep]] + h / 2, t[j[keep]] + h / 2], axis=1)
+    return np.stack([t[cells[:, 0]] + h / 2, t[cells[:, 1]] + h / 2], axis=1)
 
 
 def _batch_pad(arrays, size, fill_index=0):
@@ -454,19 +515,21 @@ def _chunk_size(max_period: int, candidates: int) -> int:
     return int(16 * np.ceil(n / 16))
 
 
-def _solve_seeds(curve, t_seeds, q_seeds, slots, chunk, iterates, resonance_order, steps,
-                 max_step):
+def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, chunk, iterates, resonance_order,
+                 steps, max_step):
     count = len(t_seeds)
     t = np.zeros((count, slots))
     for k, ts in enumerate(t_seeds):
         t[k, :len(ts)] = ts
         t[k, len(ts):] = ts[0]
     qs = np.asarray(q_seeds, dtype=np.int32)
+    targets = np.asarray(targets, dtype=np.int32)
     outs = []
     for lo in range(0, count, chunk):
-        tc, qc = _batch_pad([t[lo:lo + chunk], qs[lo:lo + chunk]], chunk)
-        out = _solve_batch(curve, jnp.asarray(tc), jnp.asarray(qc), steps, max_step, iterates,
-                           resonance_order)
+        tc, qc, gc = _batch_pad([t[lo:lo + chunk], qs[lo:lo + chunk], targets[lo:lo + chunk]],
+                                chunk)
+        out = _solve_batch(curve, jnp.asarray(tc), jnp.asarray(qc), jnp.asarray(gc), steps,
+                           max_step, iterates, resonance_order)
         outs.append(jax.tree_util.tree_map(lambda o: np.asarray(o)[:min(chunk, count - lo)], out))
     return jax.tree_util.tree_map(lambda *xs: np.concatenate(xs), *outs)
 
@@ -485,8 +548,8 @@ def _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite
     return Status.ok
 
 
-def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int = 64,
-                bouncing_grid: int = 128, candidates: int = 3, resonance_order: int = 4,
+def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int = 32,
+                bouncing_grid: int = 96, candidates: int = 3, resonance_order: int = 4,
                 check_domain: bool | None = None, newton_steps: int = 40) -> OrbitSet:
     """Cold solve: every bouncing ball and the max and min-max orbit of each p/q, q ≤ max_period.
 
@@ -500,15 +563,17 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
         raise ValueError(f"max_period: expected an integer ≥ 2, got {max_period}")
     if check_domain is None:
         check_domain = not _polygon_convex(curve, bouncing_grid)
+    polygon = boundary_polygon(curve) if check_domain else None
     slots = max_period
     chunk = _chunk_size(max_period, candidates)
     rows = []
 
     # Birkhoff orbits.
     seeds = _seed_batch(curve, max_period, grid, candidates)
-    out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds], slots, chunk,
+    out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
+                       [s[2] for s in seeds], slots, chunk,
                        iterates, resonance_order, newton_steps, 2 * np.pi / grid)
-    solved = [_row(curve, out, k, seeds[k][0], seeds[k][1], seeds[k][2], check_domain, iterates)
+    solved = [_row(curve, out, k, seeds[k][0], seeds[k][1], seeds[k][2], polygon, iterates)
               for k in range(len(seeds))]
     for p, q in rotation_numbers(max_period):
         for branch in (MAX, MINIMAX):
@@ -517,23 +582,24 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
 
     # Bouncing balls.
     for row in _bouncing_balls(curve, bouncing_grid, slots, chunk, iterates, resonance_order,
-                               newton_steps, check_domain):
+                               newton_steps, polygon):
         if not any(r["q"] == 2 and _same_orbit(r, row) for r in rows):
             rows.append(row)
-    return _to_set(rows)
+    return _to_set(rows, iterates)
 
 
-def _row(curve, out, k, p, q, branch, check_domain, iterates):
+def _row(curve, out, k, p, q, branch, polygon, iterates):
     (t, jets, length, mono, tr, kind, angle, lyap, dets, residual, index, degenerate, resonant,
      ordered, inward, winding) = jax.tree_util.tree_map(lambda o: o[k], out)
-    maslov = iterate_maslov(jets, q, iterates)
+    maslov = None  # filled for the orbits that are kept (see _to_set)
     finite = bool(np.all(np.isfinite(t)) and np.isfinite(length) and np.all(np.isfinite(mono)))
-    leaves = bool(check_domain and finite and orbit_leaves_domain(curve, t, q))
+    leaves = bool(polygon is not None and finite
+                  and orbit_leaves_domain(polygon, np.asarray(jets.point), t, q))
     wanted = 0 if branch == MAX else 1
     wrong_index = (branch != CRITICAL) and int(index) != wanted and not bool(degenerate)
     status = _status_of(float(residual), bool(ordered), float(winding), p, bool(inward), leaves,
                         bool(degenerate), finite, wrong_index)
-    return dict(p=p, q=q, branch=branch, t=t, length=float(length),
+    return dict(p=p, q=q, branch=branch, t=t, jets=jets, length=float(length),
                 monodromy=mono, trace=float(tr), kind=int(kind), angle=float(angle),
                 lyapunov=float(lyap), det_iterates=dets, maslov=maslov, reflections=q,
                 residual=float(residual), hessian_index=int(index), status=int(status),
@@ -570,16 +636,17 @@ def _polygon_convex(curve, n):
     return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
 
 
-def _bouncing_balls(curve, n, slots, chunk, iterates, resonance_order, steps, check_domain):
+def _bouncing_balls(curve, n, slots, chunk, iterates, resonance_order, steps, polygon):
     seeds = _torus_candidates(curve, n)
     if len(seeds) == 0:
         return []
     seeds = seeds[:512]
-    out = _solve_seeds(curve, list(seeds), [2] * len(seeds), slots, chunk, iterates,
+    out = _solve_seeds(curve, list(seeds), [2] * len(seeds), [-1] * len(seeds), slots, chunk,
+                       iterates,
                        resonance_order, steps, 2 * np.pi / n)
     rows = []
     for k in range(len(seeds)):
-        row = _row(curve, out, k, 1, 2, CRITICAL, check_domain, iterates)
+        row = _row(curve, out, k, 1, 2, CRITICAL, polygon, iterates)
         if row["status"] in (Status.orbit_not_converged, Status.nonfinite):
             continue
         if row["status"] == Status.branch_changed:  # winding check is meaningless for q = 2
@@ -594,7 +661,9 @@ def _bouncing_balls(curve, n, slots, chunk, iterates, resonance_order, steps, ch
     return sorted(rows, key=lambda r: -r["length"])
 
 
-def _to_set(rows) -> OrbitSet:
+def _to_set(rows, iterates) -> OrbitSet:
+    for r in rows:
+        r["maslov"] = iterate_maslov(r["jets"], r["q"], iterates)
     field = lambda name, dtype=None: np.asarray([r[name] for r in rows], dtype=dtype)  # noqa: E731
     return OrbitSet(
         p=field("p", np.int32), q=field("q", np.int32), branch=field("branch", np.int32),
