@@ -190,11 +190,13 @@ def fourier_decay_rate(curve: Curve, resolution: int = DEFAULT_RESOLUTION,
                        floor: float = 1e-13) -> Array:
     """Analyticity proxy: σ in |ẑ_k| ≈ C e^{-σ|k|}, fitted over |k| ≥ 2 above ``floor``.
 
-    ẑ_k are the Fourier coefficients of z(t) = x + iy in the curve's own parameter. σ
-    estimates the half-width of the strip of analyticity; +inf when no coefficient with
-    |k| ≥ 2 rises above the floor (a trigonometric polynomial of degree 1, e.g. an ellipse).
+    ẑ_k are the Fourier coefficients of z = x + iy in the normalized arclength 2πs/L, so σ
+    is a property of the shape (not of its parametrization): it estimates the half-width of
+    the strip of analyticity of the arclength parametrization. +inf when no coefficient with
+    |k| ≥ 2 rises above the floor (a circle). For shapes given as trigonometric polynomials
+    (an ellipse) the arclength reparametrization is what produces the decay.
     """
-    p = sample(curve, resolution, order=0)[0]
+    p = jax.vmap(curve)(arclength_parameters(curve, resolution, resolution))
     z_hat = jnp.fft.fft(p[:, 0] + 1j * p[:, 1]) / resolution
     k = jnp.arange(2, resolution // 2)
     mag = jnp.maximum(jnp.abs(z_hat[k]), jnp.abs(z_hat[-k]))
