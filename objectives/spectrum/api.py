@@ -27,6 +27,8 @@ from .kernels import BOUNDARIES
 from .solver import (Spectrum, area_perimeter, default_resolution, nodes_from_arrays, solve,
                      wavenumber_for_count)
 
+MAX_REFINEMENTS = 4
+
 __all__ = ["eigenvalues", "make_eigenvalue_function", "choose_resolution", "nodes_of"]
 
 
@@ -60,13 +62,27 @@ def _check(count, boundary, resolution):
 
 
 def eigenvalues(curve: Curve, count: int | None = None, boundary: str = "dirichlet",
-                resolution: int | None = None, k_max: float | None = None) -> Spectrum:
+                resolution: int | None = None, k_max: float | None = None,
+                accuracy: float = 1e-11) -> Spectrum:
     """The first ``count`` eigenvalues of −Δ on the domain bounded by ``curve`` (or all
-    with λ ≤ k_max²), ascending with multiplicity, with error estimates and boundary data."""
+    with λ ≤ k_max²), ascending with multiplicity, with error estimates and boundary data.
+
+    Without ``resolution``, the node count starts from :func:`choose_resolution` and grows
+    by 3/2 (at most ``MAX_REFINEMENTS`` solves) until the relative change of the top
+    eigenvalue on refinement is below ``accuracy``."""
     _check(count, boundary, resolution)
-    if resolution is None:
-        resolution = choose_resolution(curve, count, boundary, k_max)
-    return solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
+    if resolution is not None:
+        return solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
+    # The a posteriori checks drive the resolution: non-real roots near the axis or a change
+    # on 5/4 refinement above ``accuracy`` mean the boundary is under-resolved.
+    resolution = choose_resolution(curve, count, boundary, k_max)
+    for _ in range(MAX_REFINEMENTS):
+        spec = solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
+        resolved = "resolution" not in spec.message
+        if resolved and spec.extra.get("refinement_change", 0.0) <= accuracy:
+            break
+        resolution = 2 * int(np.ceil(0.75 * resolution))
+    return spec
 
 
 def _host_solve(points, count: int, boundary: str):

@@ -111,51 +111,60 @@ def wavenumber_for_count(count: float, area: float, perimeter: float, boundary: 
     return float((-b + np.sqrt(b * b - 4 * a * c)) / (2 * a))
 
 
+def feature_size(nodes: Nodes) -> np.ndarray:
+    """Per node, the distance to the nearest boundary point that is not its own neighbourhood:
+    min |x_i − x_j| over j whose arclength separation exceeds 2|x_i − x_j| (thin necks and
+    near-touching arcs make the boundary kernels nearly singular there)."""
+    s = np.concatenate([[0.0], np.cumsum(nodes.speed[:-1])]) * nodes.weight
+    total = nodes.weight * float(np.sum(nodes.speed))
+    sep = np.abs(s[:, None] - s[None, :])
+    sep = np.minimum(sep, total - sep)
+    d = np.hypot(*(nodes.x[:, None, :] - nodes.x[None, :, :]).transpose(2, 0, 1))
+    far = sep > 2.0 * d
+    return np.where(far, d, np.inf).min(axis=1)
+
+
 def default_resolution(nodes: Nodes, k_max: float) -> int:
-    """Even node count resolving e^{ikr} along the boundary (k·max|γ'| modes) plus a margin.
+    """Even node count: k·max|γ'| modes for e^{ikr} along the boundary plus a margin, and
+    node spacing |γ'|2π/N at most a fifth of the local feature size (the trapezoid rule on a
+    kernel with a pole at distance δ converges like e^{−2πδ/h}).
 
     Calibrated by the convergence tests in tests/test_spectrum.py (error below 1e-12 at
     this count on the test shapes).
     """
     bandwidth = k_max * float(nodes.speed.max())
-    return int(2 * np.ceil(0.5 * (1.3 * bandwidth + 48)))
+    spacing = float(np.max(2 * np.pi * nodes.speed / feature_size(nodes)) * 5.0)
+    return int(2 * np.ceil(0.5 * max(1.3 * bandwidth + 48, spacing)))
 
 
-def _windows(k_lo: float, k_hi: float, radius: float, chunk: float):
-    """Chunks [a, b] (geometric near k = 0, then of length ``chunk``) and their disc centres."""
-    out = []
-    a = k_lo
-    while a < k_hi:
-        b = min(a + min(a, chunk), k_hi) if k_hi - a > 1e-12 else k_hi
-        if k_hi - b < 0.25 * min(a, chunk):
-            b = k_hi
-        n = max(1, int(np.ceil((b - a) / (2.0 * min(radius, a / 3.0 + 1e-300)))))
-        rho = (b - a) / (2 * n)
-        out.append((a, b, [a + rho * (2 * j + 1) for j in range(n)], rho))
-        a = b
-    return out
+def _next_chunk(a: float, k_hi: float, radius: float, chunk: float):
+    """The chunk [a, b] after a (geometric near k = 0, then of length ``chunk``), tiled by
+    discs of radius ρ ≤ min(radius, a/3) so that k = 0 (a branch point) stays far away."""
+    b = min(a + min(a, chunk), k_hi)
+    if k_hi - b < 0.25 * min(a, chunk):
+        b = k_hi
+    n = max(1, int(np.ceil((b - a) / (2.0 * min(radius, a / 3.0)))))
+    rho = (b - a) / (2 * n)
+    return b, [a + rho * (2 * j + 1) for j in range(n)], rho
 
 
 def _beyn(proxy, centre: float, rho: float, probes: int, size: int, rng, nq: int):
-    """Eigenvalues and right null vectors of T inside (and just outside) |k − c| = ρ."""
+    """Eigenvalues and right null vectors of T inside (and just outside) |k − c| = ρ, or
+    None when the probe block is saturated (more eigenvalues than probes)."""
     theta = 2 * np.pi * (np.arange(nq) + 0.5) / nq
     unit = np.exp(1j * theta)
-    while True:
-        v = rng.standard_normal((size, probes))
-        t = proxy(centre + rho * unit)
-        a0 = np.zeros((size, probes), dtype=complex)
-        a1 = np.zeros((size, probes), dtype=complex)
-        for q in range(nq):
-            x = sl.lu_solve(sl.lu_factor(t[q], check_finite=False), v, check_finite=False)
-            a0 += (unit[q] / nq) * x
-            a1 += (unit[q] ** 2 / nq) * x
-        u, s, wh = np.linalg.svd(a0, full_matrices=False)
-        if s[0] == 0.0:
-            return np.zeros(0, dtype=complex), np.zeros((size, 0), dtype=complex)
-        rank = int(np.sum(s > 1e-11 * max(s[0], 1e-3)))
-        if rank < probes - 2 or probes >= size // 2:
-            break
-        probes = min(2 * probes, size // 2)
+    v = rng.standard_normal((size, probes))
+    t = proxy(centre + rho * unit)
+    a0 = np.zeros((size, probes), dtype=complex)
+    a1 = np.zeros((size, probes), dtype=complex)
+    for q in range(nq):
+        x = sl.lu_solve(sl.lu_factor(t[q], check_finite=False), v, check_finite=False)
+        a0 += (unit[q] / nq) * x
+        a1 += (unit[q] ** 2 / nq) * x
+    u, s, wh = np.linalg.svd(a0, full_matrices=False)
+    rank = int(np.sum(s > 1e-11 * max(s[0], 1e-3)))
+    if rank > probes - 3:
+        return None
     if rank == 0:
         return np.zeros(0, dtype=complex), np.zeros((size, 0), dtype=complex)
     b = (u[:, :rank].conj().T @ a1 @ wh[:rank].conj().T) / s[:rank]
@@ -305,33 +314,59 @@ def solve(nodes: Nodes, boundary: str, count: int | None = None, k_max: float | 
     else:
         k_hi = k_max
     rng = np.random.default_rng(_SEED)
-    candidates = []   # (k, window id, distance/ρ, vector)
-    found_below = 0
+    candidates = []   # (k, window id, distance/ρ, centre, vector)
+    near_axis = []
     status, message = Status.ok, ""
     window_id = 0
-    for a, b, centres, rho in _windows(k_min, k_hi, radius, CHUNK_LENGTH):
+
+    def scan(proxy, c: float, rho: float, depth: int = 0) -> None:
+        nonlocal window_id, status, message
+        expected = weyl_mean((c + 2 * rho) ** 2, area, perimeter, boundary) - weyl_mean(
+            max(c - 2 * rho, 0.0) ** 2, area, perimeter, boundary)
+        probes = min(int(np.ceil(1.5 * max(expected, 0.0))) + 8, size - 2)
+        found = _beyn(proxy, c, rho, probes, size, rng, quadrature_nodes)
+        if found is None and probes < size - 2:
+            found = _beyn(proxy, c, rho, min(2 * probes, size - 2), size, rng, quadrature_nodes)
+        if found is None:
+            if depth < 4:
+                scan(proxy, c - rho / 2, rho / 2, depth + 1)
+                scan(proxy, c + rho / 2, rho / 2, depth + 1)
+            else:
+                status, message = Status.solver_failed, f"too many eigenvalues near k = {c:.4g}"
+            return
+        for kj, vec in zip(found[0], found[1].T):
+            dist = abs(kj.real - c) / rho
+            real = abs(kj.imag) < 1e-6 * max(1.0, abs(kj))
+            if real and dist <= 1.25 and kj.real > 0:
+                candidates.append((kj.real, window_id, dist, c, vec))
+            elif not real and abs(kj.imag) < 0.2 * rho and dist <= 1.0:
+                # The exact T(k) is singular only at real k here (see kernels); a root just
+                # off the axis means the discretization no longer resolves this frequency.
+                near_axis.append(kj)
+        window_id += 1
+
+    a, extensions = k_min, 0
+    while True:
+        b, centres, rho = _next_chunk(a, k_hi, radius, CHUNK_LENGTH)
         proxy = build_proxy(geo, a, b, tolerance=1e-13)
         if proxy.tail > 1e-11:
             status, message = Status.solver_failed, f"Chebyshev proxy unresolved on [{a:.3g}, {b:.3g}]"
         for c in centres:
-            expected = weyl_mean((c + 2 * rho) ** 2, area, perimeter, boundary) - weyl_mean(
-                max(c - 2 * rho, 0.0) ** 2, area, perimeter, boundary)
-            probes = min(int(np.ceil(1.5 * expected)) + 8, size // 2)
-            ks, vecs = _beyn(proxy, c, rho, probes, size, rng, quadrature_nodes)
-            for j, kj in enumerate(ks):
-                dist = abs(kj.real - c) / rho
-                if abs(kj.imag) < 1e-6 * max(1.0, abs(kj)) and dist <= 1.25 and kj.real > 0:
-                    candidates.append((kj.real, window_id, dist, c, vecs[:, j]))
-            window_id += 1
+            scan(proxy, c, rho)
+        a = b
         if target is not None:
             found_below = sum(1 for cand in candidates if cand[0] < b - rho and cand[2] <= 1.0)
             if found_below >= target + 2:
-                k_hi_done = b
                 break
-    else:
-        k_hi_done = k_hi
-        if target is not None and found_below < target + 1:
-            status, message = Status.solver_failed, "fewer eigenvalues found than requested"
+            if a >= k_hi * (1 - 1e-12):
+                if extensions >= 4:
+                    status, message = Status.solver_failed, "fewer eigenvalues found than requested"
+                    break
+                extensions += 1
+                k_hi *= 1.25
+        elif a >= k_hi * (1 - 1e-12):
+            break
+    k_hi_done = a
     # Keep each eigenvalue from the window whose centre is nearest to the group it belongs to.
     kept = []
     if candidates:
@@ -401,6 +436,12 @@ def solve(nodes: Nodes, boundary: str, count: int | None = None, k_max: float | 
         keep = values <= k_max**2
         values, errors, cluster_ids, data, dens = (values[keep], errors[keep], cluster_ids[keep],
                                                    data[keep], dens[keep])
+    k_top = np.sqrt(values[-1]) if values.size else k_hi
+    near_axis = [kj for kj in near_axis if kj.real <= 1.02 * k_top]
+    if near_axis:
+        status, message = Status.solver_failed, (
+            f"non-real roots near the axis (k = {near_axis[0]:.6g}): the boundary is "
+            "under-resolved; raise the resolution")
     if not np.all(np.isfinite(values)):
         status = Status.nonfinite
     lam_top = float(values[-1]) if values.size else 0.0
