@@ -36,6 +36,7 @@ implicit function theorem without differentiating the iterations.
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import NamedTuple
 
@@ -142,16 +143,15 @@ def _chord_map(start: Array, end: Array, degree: int):
     return landing, tm.compose(cos_end.at[0].set(0.0), x, landing), p_start, p_end
 
 
-def return_map(curve: Curve, t: Array, degree: int):
-    """Taylor series (S, Q) of P = Tⁿ at the orbit in chart coordinates (σ, q) at t_1.
+def bounce_charts(curve: Curve, t: Array, degree: int) -> Array:
+    """Arclength charts at every bounce, to σ^(degree+1): shape (n, degree + 2, 2)."""
+    return jax.vmap(lambda s: arclength_chart(curve, s, degree + 1))(t)
 
-    Also returns the per-bounce mismatch between incoming and outgoing cosines (zero on a
-    periodic orbit) for diagnostics.
-    """
-    charts = jax.vmap(lambda s: arclength_chart(curve, s, degree + 1))(t)
-    landing, cosine, p_start, p_end = jax.vmap(
-        lambda a, b: _chord_map(a, b, degree))(charts, jnp.roll(charts, -1, axis=0))
-    mismatch = jnp.max(jnp.abs(jnp.roll(p_end, 1) - p_start))
+
+def return_map_from_charts(charts: Array, degree: int):
+    """Taylor series (S, Q) of P = Tⁿ at the orbit in chart coordinates (σ, q) at t_1."""
+    landing, cosine, _, _ = jax.vmap(lambda a, b: _chord_map(a, b, degree))(
+        charts, jnp.roll(charts, -1, axis=0))
 
     def chain(current, maps):
         s, q = maps
@@ -159,7 +159,12 @@ def return_map(curve: Curve, t: Array, degree: int):
 
     identity = (tm.variable(0, degree), tm.variable(1, degree))
     (s, q), _ = jax.lax.scan(chain, identity, (landing, cosine))
-    return s, q, mismatch
+    return s, q
+
+
+def return_map(curve: Curve, t: Array, degree: int):
+    """Taylor series (S, Q) of the return map at the orbit through ``t`` (not refined)."""
+    return return_map_from_charts(bounce_charts(curve, t, degree), degree)
 
 
 # ----------------------------------------------------------------------------- normal form
@@ -215,8 +220,10 @@ def _action_series(phi: Array, order: int) -> Array:
     i, j = tm.exponents(d)
     harmonics = np.arange(-d, d + 1)
     # Z_m(r) = Σ_{i−j=m} φ_ij r^{i+j}: scatter coefficients into (harmonic, power of r)
-    table = jnp.zeros((2 * d + 1, 2 * d + 2), dtype=phi.dtype).at[i - j + d, i + j].add(phi)
-    squared = jax.vmap(lambda z: jnp.convolve(z, jnp.conj(z)))(table).real
+    keep = i + j <= 2 * order  # r^{2K} needs only terms of degree < 2K
+    table = jnp.zeros((2 * d + 1, 2 * order + 1), dtype=phi.dtype).at[
+        (i - j + d)[keep], (i + j)[keep]].add(phi[keep])
+    squared = tm.umul(table, jnp.conj(table)).real  # |Z_m(r)|² to r^{2K}
     area = 0.5 * harmonics @ squared
     return area[0: 2 * order + 1: 2]
 
@@ -227,15 +234,22 @@ def _resonance_order(angle: Array, bound: int, tol: float) -> Array:
     return jnp.where(jnp.any(hit), m[jnp.argmax(hit)], 0)
 
 
-def rotation_function(s: Array, q: Array, order: int, resonance_tol: float = 1e-8):
-    """(α, τ₁..τ_K, resonance order, trace, status) from the return map's series (S, Q)."""
-    linear = jnp.stack([
-        jnp.stack([s[tm.index(tm.degree(s), 1, 0)], s[tm.index(tm.degree(s), 0, 1)]]),
-        jnp.stack([q[tm.index(tm.degree(s), 1, 0)], q[tm.index(tm.degree(s), 0, 1)]])])
+def _linear_part(s: Array, q: Array) -> Array:
+    d = tm.degree(s)
+    return jnp.array([[s[tm.index(d, 1, 0)], s[tm.index(d, 0, 1)]],
+                      [q[tm.index(d, 1, 0)], q[tm.index(d, 0, 1)]]])
+
+
+def rotation_function(s: Array, q: Array, order: int):
+    """(tr DP, α, τ₁..τ_K) from the return map's series (S, Q); α = arccos(tr/2).
+
+    Values are meaningless unless |tr| < 2 and α is non-resonant to order 2K + 2: the
+    callers mask them (see :func:`birkhoff_invariants`).
+    """
+    linear = _linear_part(s, q)
     trace = jnp.trace(linear)
     half = trace / 2.0
-    elliptic = jnp.abs(half) < 1.0
-    angle = jnp.arccos(jnp.where(elliptic, half, 0.0))
+    angle = jnp.arccos(jnp.where(jnp.abs(half) < 1.0, half, 0.0))
     frame = _rotation_frame(linear, angle)
     phi, normal = _normalize(_complex_form(s, q, frame), angle)
     d = tm.degree(s)
@@ -246,14 +260,24 @@ def rotation_function(s: Array, q: Array, order: int, resonance_tol: float = 1e-
     action = _action_series(phi, order)
     rho_of_action = tm.urevert(action)
     tau = tm.ucompose(theta, rho_of_action)[1:]
+    return trace, angle, tau
 
-    resonance = _resonance_order(angle, 2 * order + 2, resonance_tol)
-    allowed = (resonance == 0) | (resonance > 2 * np.arange(1, order + 1) + 2)
-    tau = jnp.where(allowed & elliptic, tau, jnp.nan)
-    status = jnp.where(~elliptic, code(Status.degenerate),
-                       jnp.where(resonance > 0, code(Status.resonant), code(Status.ok)))
-    angle = jnp.where(elliptic, angle, jnp.nan)
-    return angle, tau, resonance, trace, status
+
+@functools.partial(jax.jit, static_argnums=0)
+def invariants_from_charts(order: int, charts: Array):
+    """(tr DP, α, τ) from the bounce charts (see :func:`bounce_charts`, degree 2·order + 1).
+
+    Jitted on its own: it does not depend on the boundary function, so every curve family
+    shares one compilation per (order, number of bounces) when called outside a jit.
+    """
+    s, q = return_map_from_charts(charts, 2 * order + 1)
+    return rotation_function(s, q, order)
+
+
+# jitted pieces, so eager calls compile each once per boundary function (and the
+# boundary-independent algebra once per order); inside an outer jit they are inlined
+_refine_jit = jax.jit(refine_bounces, static_argnums=(2, 3))
+_charts_jit = jax.jit(bounce_charts, static_argnums=2)
 
 
 def birkhoff_invariants(curve: Curve, bounce_params: Array, order: int = 3, *,
@@ -272,9 +296,15 @@ def birkhoff_invariants(curve: Curve, bounce_params: Array, order: int = 3, *,
     t = jnp.asarray(bounce_params, dtype=jnp.float64)
     if t.ndim != 1 or t.shape[0] < 2:
         raise ValueError("bounce_params: expected a 1-D array of at least 2 curve parameters")
-    t, orbit_status = refine_bounces(curve, t, newton_steps, orbit_tol)
-    s, q, _ = return_map(curve, t, 2 * order + 1)
-    angle, tau, resonance, trace, nf_status = rotation_function(s, q, order, resonance_tol)
+    t, orbit_status = _refine_jit(curve, t, newton_steps, orbit_tol)
+    trace, angle, tau = invariants_from_charts(order, _charts_jit(curve, t, 2 * order + 1))
+    elliptic = jnp.abs(trace) < 2.0
+    resonance = _resonance_order(angle, 2 * order + 2, resonance_tol)
+    allowed = (resonance == 0) | (resonance > 2 * np.arange(1, order + 1) + 2)
+    tau = jnp.where(allowed & elliptic, tau, jnp.nan)
+    angle = jnp.where(elliptic, angle, jnp.nan)
+    nf_status = jnp.where(~elliptic, code(Status.degenerate),
+                          jnp.where(resonance > 0, code(Status.resonant), code(Status.ok)))
     length = periodic_length(curve, t)
     status = combine(orbit_status, nf_status)
     bad = (nf_status == code(Status.ok)) & ~jnp.all(jnp.isfinite(tau))

@@ -49,19 +49,31 @@ def index(degree_: int, i: int, j: int) -> int:
 
 
 @functools.lru_cache(maxsize=None)
-def _product_tables(degree_: int):
-    """Pairs of monomials whose product survives truncation, and a one-hot map to the result."""
+def _shift_table(degree_: int) -> np.ndarray:
+    """T[k, c] = position of monomial c − k (or the padding slot M when c − k is not one)."""
     mons = monomials(degree_)
-    left, right, out = [], [], []
-    for a, (i1, j1) in enumerate(mons):
-        for b, (i2, j2) in enumerate(mons):
-            if i1 + j1 + i2 + j2 <= degree_:
-                left.append(a)
-                right.append(b)
-                out.append(index(degree_, i1 + i2, j1 + j2))
-    scatter = np.zeros((len(out), len(mons)))
-    scatter[np.arange(len(out)), out] = 1.0
-    return np.asarray(left), np.asarray(right), scatter
+    size = len(mons)
+    table = np.full((size, size), size)
+    for k, (i1, j1) in enumerate(mons):
+        for c, (i2, j2) in enumerate(mons):
+            if i2 >= i1 and j2 >= j1:
+                table[k, c] = index(degree_, i2 - i1, j2 - j1)
+    return table
+
+
+@functools.lru_cache(maxsize=None)
+def _coefficient_grid(degree_: int) -> np.ndarray:
+    """G[i, j] = position of x^i y^j (padding slot M when i + j > degree)."""
+    size = (degree_ + 1) * (degree_ + 2) // 2
+    grid = np.full((degree_ + 1, degree_ + 1), size)
+    for i in range(degree_ + 1):
+        for j in range(degree_ + 1 - i):
+            grid[i, j] = index(degree_, i, j)
+    return grid
+
+
+def _padded(a: Array) -> Array:
+    return jnp.concatenate([a, jnp.zeros(a.shape[:-1] + (1,), dtype=a.dtype)], axis=-1)
 
 
 @functools.lru_cache(maxsize=None)
@@ -98,18 +110,29 @@ def embed(univariate: Array, which: int, degree_: int) -> Array:
     return jnp.zeros(coeffs.shape[:-1] + (size,), dtype=coeffs.dtype).at[..., positions].set(coeffs)
 
 
+def _vecmat(v: Array, matrix: Array) -> Array:
+    """v @ matrix as multiply-and-sum: XLA fuses it, and compiles it much faster than the
+    many tiny dot ops a high-order series computation would otherwise emit."""
+    return jnp.sum(v[..., :, None] * matrix, axis=-2)
+
+
+def multiplication_matrix(b: Array) -> Array:
+    """The matrix B with a·b = a @ B (truncated product; broadcasts over leading axes)."""
+    return _padded(b)[..., _shift_table(degree(b))]
+
+
 def mul(a: Array, b: Array) -> Array:
     """Truncated product a·b (broadcasts over leading axes)."""
-    left, right, scatter = _product_tables(degree(a))
-    return (a[..., left] * b[..., right]) @ scatter
+    return _vecmat(a, multiplication_matrix(b))
 
 
 def powers(a: Array, count: int) -> Array:
     """Stack [1, a, a², …, a^count] (shape (count + 1, len))."""
+    # a scan compiles its body once; unrolled chains of tiny products cost far more compile
+    matrix = multiplication_matrix(a)
     one = constant(1.0, degree(a), a.dtype)
-
     def step(previous, _):
-        current = mul(previous, a)
+        current = _vecmat(previous, matrix)
         return current, current
 
     _, rest = jax.lax.scan(step, one, None, length=count)
@@ -117,11 +140,19 @@ def powers(a: Array, count: int) -> Array:
 
 
 def compose(f: Array, a: Array, b: Array) -> Array:
-    """f(a(x, y), b(x, y)) for series a, b with a(0) = b(0) = 0 (f may be batched)."""
+    """f(a(x, y), b(x, y)) for series a, b with a(0) = b(0) = 0 (f may be batched).
+
+    Σ_i a^i (Σ_j f_ij b^j): powers of b, then Horner's scheme in a.
+    """
     n = degree(f)
-    i, j = exponents(n)
-    terms = mul(powers(a, n)[i], powers(b, n)[j])  # a^i b^j for every monomial of f
-    return f @ terms
+    inner = _padded(f)[..., _coefficient_grid(n)] @ powers(b, n)  # (..., i, monomial)
+    matrix = multiplication_matrix(a)
+    def horner(result, coefficient):
+        return _vecmat(result, matrix) + coefficient, None
+
+    stacked = jnp.moveaxis(inner[..., :n, :], -2, 0)[::-1]
+    result, _ = jax.lax.scan(horner, inner[..., n, :], stacked)
+    return result
 
 
 def swap_conjugate(f: Array) -> Array:
@@ -157,21 +188,29 @@ def power_of(a: Array, exponent: float) -> Array:
 
 
 # ----------------------------------------------------------------------------- univariate
+@functools.lru_cache(maxsize=None)
+def _toeplitz_table(length: int) -> np.ndarray:
+    k, c = np.meshgrid(np.arange(length), np.arange(length), indexing="ij")
+    return np.where(c >= k, c - k, length)
+
+
+def umultiplication_matrix(b: Array) -> Array:
+    """Upper-triangular Toeplitz B with a·b = a @ B for univariate series."""
+    return _padded(b)[..., _toeplitz_table(b.shape[-1])]
+
+
 def umul(a: Array, b: Array) -> Array:
-    """Truncated product of univariate series of equal length."""
-    return jnp.convolve(a, b)[: a.shape[-1]]
+    """Truncated product of univariate series of equal length (broadcasts)."""
+    return _vecmat(a, umultiplication_matrix(b))
 
 
 def upowers(a: Array, count: int) -> Array:
     """Stack [1, a, …, a^count] of a univariate series."""
-    one = jnp.zeros_like(a).at[0].set(1.0)
-
-    def step(previous, _):
-        current = umul(previous, a)
-        return current, current
-
-    _, rest = jax.lax.scan(step, one, None, length=count)
-    return jnp.concatenate([one[None], rest])
+    matrix = umultiplication_matrix(a)
+    out = [jnp.zeros_like(a).at[0].set(1.0)]
+    for _ in range(count):
+        out.append(_vecmat(out[-1], matrix))
+    return jnp.stack(out)
 
 
 def ucompose(f: Array, u: Array) -> Array:
