@@ -30,6 +30,7 @@ import scipy.linalg as sl
 from ..status import Status
 from .kernels import BOUNDARIES, Geometry, Nodes, geometry, operator_matrix
 from .proxy import build_proxy
+from .threads import single_blas_thread
 
 QUADRATURE_NODES = 32
 WINDOW_RADIUS = 0.5
@@ -292,6 +293,11 @@ def solve(nodes: Nodes, boundary: str, count: int | None = None, k_max: float | 
           k_min: float | None = None, radius: float = WINDOW_RADIUS,
           quadrature_nodes: int = QUADRATURE_NODES, cluster_tol: float = CLUSTER_TOL) -> Spectrum:
     """The first ``count`` eigenvalues, or all with k ≤ ``k_max`` (see module docstring)."""
+    with single_blas_thread():
+        return _solve(nodes, boundary, count, k_max, k_min, radius, quadrature_nodes, cluster_tol)
+
+
+def _solve(nodes, boundary, count, k_max, k_min, radius, quadrature_nodes, cluster_tol):
     if boundary not in BOUNDARIES:
         raise ValueError(f"boundary: expected one of {BOUNDARIES}, got {boundary!r}")
     if (count is None) == (k_max is None):
