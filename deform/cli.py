@@ -73,13 +73,18 @@ def _measure_args(p):
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     p.add_argument("--resolution", type=_positive_int, default=None,
                    help="trapezoid nodes for boundary integrals (default: [measure] resolution, 256)")
+    p.add_argument("--eigenvalues", type=_positive_int, default=0, metavar="N",
+                   help="also compute the first N Laplace eigenvalues (boundary integral solver)")
+    p.add_argument("--boundary", choices=("dirichlet", "neumann"), default="dirichlet",
+                   help="boundary condition for --eigenvalues (default: dirichlet)")
 
 
 def _measure_run(args) -> int:
     from .measure import MeasureOptions, format_tables, measure
 
     config, shape = _load_shape(args.config)
-    options = MeasureOptions(resolution=args.resolution or config.measure.resolution)
+    options = MeasureOptions(resolution=args.resolution or config.measure.resolution,
+                             eigenvalues=args.eigenvalues, boundary=args.boundary)
     report, tables = measure(shape, options)
     if args.json:
         print(json.dumps(json_ready(report), allow_nan=False))
@@ -88,6 +93,18 @@ def _measure_run(args) -> int:
                   f"{shape.family.symmetry.describe()}, {shape.family.n_params} free parameters")
         print(format_tables(header, tables))
     return 0
+
+
+def _compare_args(p):
+    from .compare import compare_args
+
+    compare_args(p)
+
+
+def _compare_run(args) -> int:
+    from .compare import compare_run
+
+    return compare_run(args)
 
 
 def json_ready(value):
@@ -112,6 +129,8 @@ def json_ready(value):
 COMMANDS: list[Command] = [
     Command("check", "validate a config file without running it", _check_args, _check_run),
     Command("measure", "print the invariants of a shape", _measure_args, _measure_run),
+    Command("compare", "compare the Laplace spectra of two shapes or records",
+            _compare_args, _compare_run),
     Command("run", "run a search config and record it (HDF5)", runcli.run_args, runcli.run_run),
     Command("inspect", "print a record's config, summary and steps", runcli.inspect_args,
             runcli.inspect_run),

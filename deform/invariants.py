@@ -158,3 +158,5 @@ register(InvariantFamily(
     _symmetric_orbits,
     (("max_period", 5), ("all_rotations", False), ("kinds", ("A", "B")), ("steps", 8),
      ("tol", 1e-9), ("degenerate_tol", 1e-7), ("free", False))))
+
+from . import eigen as _eigen  # noqa: E402,F401  (registers eigenvalues_dirichlet/_neumann)

@@ -16,12 +16,15 @@ import numpy as np
 
 from objectives import geometry
 
+from .eigen import eigenvalue_section
 from .shape import Shape
 
 
 @dataclass(frozen=True)
 class MeasureOptions:
     resolution: int = 256
+    eigenvalues: int = 0            # > 0: add the first N Laplace eigenvalues
+    boundary: str = "dirichlet"     # boundary condition for the eigenvalue section
 
 
 @dataclass(frozen=True)
@@ -78,7 +81,9 @@ def geometry_section(shape: Shape, options: MeasureOptions):
     return data, rows
 
 
-SECTIONS: list[Section] = [Section("geometry", geometry_section)]
+SECTIONS: list[Section] = [Section("geometry", geometry_section),
+                           Section("eigenvalues", eigenvalue_section,
+                                   lambda options: options.eigenvalues > 0)]
 
 
 def measure(shape: Shape, options: MeasureOptions = MeasureOptions()):
