@@ -63,7 +63,7 @@ def _check(count, boundary, resolution):
 
 def eigenvalues(curve: Curve, count: int | None = None, boundary: str = "dirichlet",
                 resolution: int | None = None, k_max: float | None = None,
-                accuracy: float = 1e-11) -> Spectrum:
+                accuracy: float = 1e-10) -> Spectrum:
     """The first ``count`` eigenvalues of −Δ on the domain bounded by ``curve`` (or all
     with λ ≤ k_max²), ascending with multiplicity, with error estimates and boundary data.
 
@@ -79,7 +79,7 @@ def eigenvalues(curve: Curve, count: int | None = None, boundary: str = "dirichl
     for _ in range(MAX_REFINEMENTS):
         spec = solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
         resolved = "resolution" not in spec.message
-        if resolved and spec.extra.get("refinement_change", 0.0) <= accuracy:
+        if resolved and 2.0 * spec.extra.get("refinement_change", 0.0) <= accuracy:
             break
         resolution = 2 * int(np.ceil(0.75 * resolution))
     return spec

@@ -135,7 +135,7 @@ def default_resolution(nodes: Nodes, k_max: float) -> int:
     """
     bandwidth = k_max * float(nodes.speed.max())
     spacing = float(np.max(2 * np.pi * nodes.speed / feature_size(nodes)) * 5.0)
-    return int(2 * np.ceil(0.5 * max(1.3 * bandwidth + 48, spacing)))
+    return int(2 * np.ceil(0.5 * max(1.5 * bandwidth + 48, spacing)))
 
 
 def _next_chunk(a: float, k_hi: float, radius: float, chunk: float):
@@ -181,9 +181,10 @@ def _orth(a: np.ndarray) -> np.ndarray:
 def _polish(geo: Geometry, k0: np.ndarray, vectors: np.ndarray):
     """Refined k (m,), error estimates (m,), refined complex basis (N, m) of one cluster."""
     kc = float(np.mean(k0.real))
-    h = 1e-5 * max(1.0, kc)
+    # A one-sided difference suffices: the derivative only sets the Newton step's rate.
+    h = 1e-7 * max(1.0, kc)
     t0 = operator_matrix(geo, kc)
-    dt = (operator_matrix(geo, kc + h) - operator_matrix(geo, kc - h)) / (2 * h)
+    dt = (operator_matrix(geo, kc + h) - t0) / h
     q = _orth(vectors)
     try:
         q = _orth(sl.lu_solve(sl.lu_factor(t0, check_finite=False), q, check_finite=False))
