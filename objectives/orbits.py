@@ -226,8 +226,10 @@ def orbit_data(curve: Curve, t: Array, q, iterates: int = 3, resonance_order: in
     n = jnp.arange(size)
     prev = jnp.where(n == 0, q - 1, n - 1)
     residual = jnp.max(jnp.where(chords.active, jnp.abs(chords.cos_in[prev] - chords.cos_out), 0.0))
-    pos, _, rel_min = _morse_counts(chords, q, size)
-    degenerate = jnp.any(jnp.abs(dets) < DEGENERATE_TOL) | (rel_min < DEGENERATE_TOL)
+    # Integer diagnostics: no derivative needed, so none is traced.
+    pos, _, rel_min = _morse_counts(jax.lax.stop_gradient(chords), q, size)
+    degenerate = jnp.any(jnp.abs(jax.lax.stop_gradient(dets)) < DEGENERATE_TOL) | (
+        rel_min < DEGENERATE_TOL)
     nxt = billiard.next_index(size, q)
     steps = jnp.where(chords.active, jnp.mod(t[nxt] - t, 2.0 * jnp.pi), 0.0)
     ordered = jnp.all(jnp.where(chords.active, steps > 0, True)) | (q == 2)
@@ -463,9 +465,14 @@ def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> b
 
 def _seed_batch(curve, max_period, grid, candidates):
     """Seeds (padded t, q, p, branch) from the max-plus search for every rotation number."""
-    t_grid, points = boundary_grid(curve, grid)
+    grids = {}
     seeds = []
     for p, q in rotation_numbers(max_period):
+        # At least ~5 grid points per bounce, so long orbits keep resolved seeds.
+        n = max(grid, int(16 * np.ceil(5 * q / 16)))
+        if n not in grids:
+            grids[n] = boundary_grid(curve, n)
+        t_grid, points = grids[n]
         table, back = birkhoff_table(points, p, q)
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
             starts = _local_extrema(table, maxima)
@@ -473,7 +480,7 @@ def _seed_batch(curve, max_period, grid, candidates):
             margin = 0.02 * (np.max(table) - np.min(table)) + 1e-12
             best = table[starts[0]]
             starts = [s for s in starts if abs(table[s] - best) <= margin]
-            for path in _distinct_paths(back, starts, p, grid, candidates):
+            for path in _distinct_paths(back, starts, p, n, candidates):
                 seeds.append((p, q, branch, _lift(t_grid[path], p)))
     return seeds
 
@@ -583,7 +590,9 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
     # Bouncing balls.
     for row in _bouncing_balls(curve, bouncing_grid, slots, chunk, iterates, resonance_order,
                                newton_steps, polygon):
-        if not any(r["q"] == 2 and _same_orbit(r, row) for r in rows):
+        same_family = lambda r: (r["degenerate"] and row["degenerate"]  # noqa: E731
+                                 and abs(r["length"] - row["length"]) < 1e-9 * row["length"])
+        if not any(r["q"] == 2 and (_same_orbit(r, row) or same_family(r)) for r in rows):
             rows.append(row)
     return _to_set(rows, iterates)
 
@@ -681,9 +690,11 @@ def _to_set(rows, iterates) -> OrbitSet:
 
 
 @partial(jax.jit, static_argnames=("newton_steps", "resonance_order"))
-def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 3,
+def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
                   resonance_order: int = 4) -> OrbitSet:
     """Warm path: Newton from the tracked bounce parameters, implicit derivatives (jittable).
+
+    At most ``newton_steps`` steps, stopping as soon as every orbit's step is below 1e-14.
 
     Lengths are W at the critical point (exact gradient by the envelope theorem); the bounce
     parameters carry the implicit-function derivative −H⁻¹∂_θ∇W through one correction step
@@ -695,10 +706,14 @@ def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 3,
     iterates = orbits.det_iterates.shape[1]
 
     def one(t, q, index, maslov, branch):
+        target = jnp.where(branch == MAX, 0, jnp.where(branch == MINIMAX, 1, -1))
         t_star = jax.lax.stop_gradient(_newton(curve, jax.lax.stop_gradient(t), q, newton_steps,
-                                               0.5))
-        _, h_pinv, grad = _newton_direction(curve, t_star, q)
-        t_new = t_star - jax.lax.stop_gradient(h_pinv) @ grad
+                                               0.5, target))
+        # Only ∇W carries the shape derivative; the pseudo-inverse Hessian is held constant.
+        _, h_pinv, _ = _newton_direction(jax.lax.stop_gradient(curve), t_star, q)
+        jets = billiard.bounce_jets(curve, t_star)
+        grad = billiard.length_gradient_from(jets, billiard.chords_from_jets(jets, q), q)
+        t_new = t_star - h_pinv @ grad
         (_, length, mono, tr, kind, angle, lyap, dets, residual, new_index, degenerate, resonant,
          ordered, inward) = orbit_data(curve, t_new, q, iterates, resonance_order)
         changed = (~ordered) | ((branch != CRITICAL) & (new_index != index) & (~degenerate))
