@@ -8,7 +8,7 @@ import sys
 from dataclasses import dataclass
 from typing import Callable
 
-from . import __version__, runcli
+from . import __version__, runcli, scanspec
 from .errors import ConfigError, DeformError
 
 
@@ -137,6 +137,8 @@ COMMANDS: list[Command] = [
     Command("plot", "write PNG figures of a record", runcli.plot_args, runcli.plot_run),
     Command("demo", "run the default demo search (runs/demo.h5 + figures)", runcli.demo_args,
             runcli.demo_run),
+    Command("scan", "first-order rigidity scan: Jacobian rank, null modes, path (HDF5)",
+            scanspec.scan_args, scanspec.scan_run),
 ]
 
 

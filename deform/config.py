@@ -14,6 +14,7 @@ from typing import Any, Callable
 
 from .errors import ConfigError
 from .families import FAMILIES, Disk, Ellipse, FourierCurve, Polar, ShapeFamily, Support
+from .scanspec import ScanSpec, parse_scan
 from .searchspec import InvariantOptions, SearchSpec, parse_invariants, parse_search
 from .symmetry import KINDS, Symmetry
 
@@ -225,6 +226,7 @@ class Config:
     measure: MeasureSpec = MeasureSpec()
     search: SearchSpec | None = None
     invariants: InvariantOptions = InvariantOptions()
+    scan: ScanSpec | None = None
 
 
 SECTIONS: dict[str, Callable[[Reader], Any]] = {
@@ -232,6 +234,7 @@ SECTIONS: dict[str, Callable[[Reader], Any]] = {
     "measure": parse_measure,
     "search": parse_search,
     "invariants": parse_invariants,
+    "scan": parse_scan,
 }
 
 
