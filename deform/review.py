@@ -62,7 +62,8 @@ def summary_lines(record: Record) -> list[str]:
     drift = family_drift(record)
     if drift:
         held = ", ".join(f"{name} {np.max(v):.2g}" for name, v in drift.items())
-        lines.append(f"kept values held (max relative drift over the path): {held}")
+        lines.append(f"kept values held (max relative drift over the path): {held}; "
+                     f"at the end {steps['residual'][last]:.2g}")
     if steps.get("invariants") is not None and meta.get("start_values") and n:
         start_perimeter = _value(record, "perimeter:perimeter")
         if start_perimeter is not None:

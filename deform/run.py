@@ -20,7 +20,8 @@ from objectives.status import Status
 from .errors import ConfigError, ShapeError
 from .families import ShapeFamily
 from .record import Column, open_writer, provenance, read_record, resume_rows
-from .search import (Prepared, StepInfo, boundary_sample, build_problem, evaluator_data,
+from .search import (Prepared, StepInfo, boundary_sampler, build_problem, distance_meter,
+                     evaluator_data,
                      flatten_state, prepare, recheck, unflatten_state)
 from .searchspec import InvariantOptions, SearchSpec
 
@@ -84,11 +85,11 @@ def _meta(prepared: Prepared, spec: SearchSpec, steps_limit: int) -> dict:
     }
 
 
-def _row(prepared: Prepared, spec: SearchSpec, state, info: StepInfo) -> dict:
+def _row(prepared: Prepared, sample, state, info: StepInfo) -> dict:
     problem = prepared.problem
     row = {
         "step": int(state.step), "params": np.asarray(state.params),
-        "boundary": boundary_sample(problem, state.params, spec.boundary_points),
+        "boundary": sample(state.params),
         "invariants": info.values, "residuals": info.residuals, "residual": info.residual,
         "move": info.move, "distance": info.distance, "step_size": info.step_size,
         "iterations": info.iterations, "null_dim": info.null_dim, "status": info.status,
@@ -133,6 +134,13 @@ def run_search(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
     _check_start(problem)
     prepared = prepare(problem, spec)
     tables = _tables(prepared, spec)
+    sample = boundary_sampler(problem, spec.boundary_points)
+    meter = distance_meter(problem)
+
+    def measured(info: StepInfo) -> StepInfo:
+        distance = meter(info.params)
+        move = distance if problem.move_kind == "distance" else info.move
+        return info._replace(distance=distance, move=move)
     state, initial = prepared.state, None
     if resume:
         old = read_record(output)
@@ -161,27 +169,34 @@ def run_search(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
                  f", rank {prepared.rank}; moving {problem.move_label}")
         stop = None
         if not resume:
-            writer.append("steps", _row(prepared, spec, state, _start_info(prepared)))
+            writer.append("steps", _row(prepared, sample, state, _start_info(prepared)))
             stop = _start_problem(prepared, spec)
         progress(HEADER)
         while stop is None and int(state.step) < limit:
             new_state, info = prepared.update(prepared.ctx, state)
-            info = jax.device_get(info)
+            info = measured(jax.device_get(info))
             if bool(info.accepted):
                 state = new_state
                 note, reports = "", []
                 due = spec.recheck_every and int(state.step) % spec.recheck_every == 0
                 if due or int(state.step) == limit:
                     state, reports = recheck(problem, state)
-                writer.append("steps", _row(prepared, spec, state, info))
+                writer.append("steps", _row(prepared, sample, state, info))
                 progress(_line(int(state.step), info, note))
                 bad = [(name, st) for name, st in reports if st != Status.ok]
                 if bad:
                     stop = (bad[0][1], f"recheck of {bad[0][0]}: {bad[0][1].message}")
                 elif problem.move_kind != "distance" and abs(
-                        float(info.move) - problem.move_target) <= problem.move_tolerance:
+                        float(info.move) - problem.move_target) <= problem.move_tolerance and (
+                        spec.mode == "continuation"
+                        or float(info.residual) <= spec.penalty.tolerance):
                     stop = (Status.ok, f"target reached: {problem.move_label} = "
                                        f"{float(info.move):.8g}")
+                elif spec.mode == "continuation" and float(
+                        state.step_size) < spec.continuation.min_step:
+                    stop = (Status.ok, f"stalled: {problem.move_label} no longer improves "
+                            f"(= {float(info.move):.8g}); a local extremum along the shapes "
+                            "that keep the kept values")
             else:
                 writer.append("rejected", {
                     "step": int(state.step) + 1, "params": info.params,
@@ -210,7 +225,7 @@ def _check_start(problem) -> None:
 
     from .search import constraint_status
 
-    status = Status(int(constraint_status(problem, problem.start)))
+    status = Status(int(jax.jit(lambda x: constraint_status(problem, x))(problem.start)))
     if status == Status.not_convex:
         kmin = float(convexity_margin(problem.curve(problem.start))[0])
         raise ConfigError(f"search.convex: the start shape is not convex (min curvature "

@@ -118,6 +118,7 @@ class Problem:
     move_target: float
     move_tolerance: float
     convex: bool
+    distance_points: int = 64
 
     def curve(self, params) -> Curve:
         return Curve(self.family.boundary, params)
@@ -169,7 +170,8 @@ def build_problem(family: ShapeFamily, spec: SearchSpec, options: InvariantOptio
                               f"{', '.join(own)})")
     x0 = np.asarray(family.initial_params() if start is None else start, dtype=np.float64)
     return Problem(family, x0, tuple(names), tuple(evaluators), len(spec.keep), labels, n_kept,
-                   move.kind, move_index, move.target, move.tolerance, spec.convex)
+                   move.kind, move_index, move.target, move.tolerance, spec.convex,
+                   spec.distance_points)
 
 
 # --------------------------------------------------------------------------- evaluation
@@ -193,9 +195,10 @@ def _residual(problem: Problem, ctx: Context, x, states):
 
 
 def _move_quantity(problem: Problem, ctx: Context, x, values):
-    """The moved quantity q (D for distance; the coefficient or the invariant entry)."""
+    """The moved quantity q (the coefficient or the invariant entry; NaN for distance, whose
+    exact value the run loop measures on recorded shapes only, to keep steps cheap)."""
     if problem.move_kind == "distance":
-        return shape_distance(problem.curve(ctx.start), problem.curve(x))
+        return jnp.asarray(jnp.nan)
     if problem.move_kind == "coefficient":
         return x[problem.move_index]
     return values[problem.move_index]
@@ -204,7 +207,8 @@ def _move_quantity(problem: Problem, ctx: Context, x, values):
 def _move_objective(problem: Problem, ctx: Context, x, states):
     """Objective to increase: D² (smooth at the start) or −½(q − target)²."""
     if problem.move_kind == "distance":
-        return shape_distance(problem.curve(ctx.start), problem.curve(x), smooth=True)
+        return shape_distance(problem.curve(ctx.start), problem.curve(x),
+                              points=problem.distance_points, smooth=True)
     if problem.move_kind == "coefficient":
         q = x[problem.move_index]
     else:
@@ -269,8 +273,9 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         # all linear algebra in the weighted coordinates y (x = x₀ + W y)
         projector, pinv_apply, _, null_dim = _null_space(jacobian(x) * w, cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
-        along_move, move_norm = _unit(projector @ (w * jax.grad(
-            lambda p: _move_objective(problem, ctx, p, states))(x)))
+        objective, move_grad = jax.value_and_grad(
+            lambda p: _move_objective(problem, ctx, p, states))(x)
+        along_move, move_norm = _unit(projector @ (w * move_grad))
         along_prev, prev_norm = _unit(projector @ state.tangent)
         along_random, _ = _unit(projector @ jax.random.normal(sub, x.shape))
         tangent = jnp.where(move_norm > 1e-12, along_move,
@@ -312,8 +317,12 @@ def make_continuation(problem: Problem, spec: SearchSpec):
                          jnp.where(jnp.all(jnp.isfinite(values)), code(Status.ok),
                                    code(Status.nonfinite)))
         accepted = status == int(Status.ok)
+        # a step past an extremum of the move objective is kept (it is a valid point of the
+        # set) but halves the step, so the search settles instead of oscillating
+        improved = _move_objective(problem, ctx, x_new, states_new) > objective
         factor = jnp.where(iterations <= 3, cs.grow, jnp.where(iterations <= 6, 1.0, 1 / cs.grow))
-        grown = jnp.clip(state.step_size * factor, cs.min_step, cs.max_step)
+        grown = jnp.where(improved, jnp.minimum(state.step_size * factor, cs.max_step),
+                          0.5 * state.step_size)
         pick = lambda a, b: jax.tree_util.tree_map(  # noqa: E731
             lambda u, v: jnp.where(accepted, u, v), a, b)
         new_state = SearchState(
@@ -324,8 +333,7 @@ def make_continuation(problem: Problem, spec: SearchSpec):
             multipliers=state.multipliers, opt_state=(),
             evaluator_states=pick(states_new, states))
         info = StepInfo(accepted, status, codes, x_new, values, r, residual,
-                        _move_quantity(problem, ctx, x_new, values),
-                        shape_distance(problem.curve(ctx.start), problem.curve(x_new)), h,
+                        _move_quantity(problem, ctx, x_new, values), jnp.asarray(jnp.nan), h,
                         iterations, null_dim)
         return new_state, info
 
@@ -394,8 +402,7 @@ def make_penalty(problem: Problem, spec: SearchSpec):
             opt_state=pick(opt_state, state.opt_state),
             evaluator_states=pick(states_new, states))
         info = StepInfo(accepted, status, codes, x_new, values, r, residual,
-                        _move_quantity(problem, ctx, x_new, values),
-                        shape_distance(problem.curve(ctx.start), problem.curve(x_new)),
+                        _move_quantity(problem, ctx, x_new, values), jnp.asarray(jnp.nan),
                         state.step_size * jnp.linalg.norm(updates),
                         jnp.asarray(1, jnp.int32), jnp.asarray(-1, jnp.int32))
         return new_state, info
@@ -473,9 +480,18 @@ def unflatten_state(template: SearchState, vector: np.ndarray) -> SearchState:
     return jax.tree_util.tree_unflatten(treedef, out)
 
 
-def boundary_sample(problem: Problem, params, points: int) -> np.ndarray:
-    curve = problem.curve(jnp.asarray(params))
-    return np.asarray(jax.vmap(curve)(nodes(points)))
+def distance_meter(problem: Problem) -> Callable[[Any], float]:
+    """Jitted x ↦ exact isometry-invariant distance D(start, x) (objectives.distance)."""
+    start = problem.curve(jnp.asarray(problem.start))
+    meter = jax.jit(lambda x: shape_distance(start, problem.curve(x),
+                                             points=problem.distance_points))
+    return lambda params: float(meter(jnp.asarray(params)))
+
+
+def boundary_sampler(problem: Problem, points: int) -> Callable[[Any], np.ndarray]:
+    """Jitted x ↦ boundary points at ``points`` equispaced curve parameters."""
+    sample = jax.jit(lambda x: jax.vmap(problem.curve(x))(nodes(points)))
+    return lambda params: np.asarray(sample(jnp.asarray(params)))
 
 
 def evaluator_data(problem: Problem, state: SearchState) -> dict[str, np.ndarray]:

@@ -57,6 +57,7 @@ class PenaltySpec:
     move_weight: float = 1.0
     multiplier_every: int = 20
     max_update: float = 0.05
+    tolerance: float = 1e-6
 
 
 @dataclass(frozen=True)
@@ -73,6 +74,7 @@ class SearchSpec:
     scale_floor: float = 1e-9
     boundary_points: int = 128
     smoothness: float = 2.0
+    distance_points: int = 64
     move: MoveSpec = MoveSpec()
     continuation: ContinuationSpec = ContinuationSpec()
     penalty: PenaltySpec = PenaltySpec()
@@ -158,6 +160,7 @@ def _penalty(r) -> PenaltySpec:
         move_weight=r.number("move_weight", d.move_weight, minimum=0.0),
         multiplier_every=r.integer("multiplier_every", d.multiplier_every, minimum=0),
         max_update=r.number("max_update", d.max_update, positive=True),
+        tolerance=r.number("tolerance", d.tolerance, positive=True),
     )
     r.done()
     return spec
@@ -189,6 +192,7 @@ def parse_search(r) -> SearchSpec:
         scale_floor=r.number("scale_floor", 1e-9, positive=True),
         boundary_points=r.integer("boundary_points", 128, minimum=16, maximum=4096),
         smoothness=r.number("smoothness", 2.0, minimum=0.0, maximum=8.0),
+        distance_points=r.integer("distance_points", 64, minimum=16, maximum=1024),
         move=move,
         continuation=_continuation(r.sub("continuation", {})),
         penalty=_penalty(r.sub("penalty", {})),
