@@ -326,3 +326,25 @@ def test_bad_arguments_are_reported():
         eigenvalues(curve, 0)
     with pytest.raises(ValueError, match="resolution"):
         eigenvalues(curve, 3, resolution=31)
+
+
+def test_wave_trace_peak_matches_bouncing_ball_orbit():
+    """Trace formula check on the ellipse (1, 0.6): the isolated minor-axis bouncing ball
+    (L = 4b = 2.4, two reflections) gives a peak of F(ℓ) at ℓ = L with 2|F(L)| → A and
+    arg F(L) → σπ/2, A = L/(π|2 − tr P|^{1/2}), σ = μ + 2n = 1 + 4 (Gutzwiller 1971; Balian &
+    Bloch 1972; Sieber, Pavloff & Schmit, Phys. Rev. E 55 (1997) 2279). Round-trip trace of a
+    two-mirror cavity, mirrors of radius R = a²/b at distance d = 2b: tr P = 2(2g² − 1),
+    g = 1 − d/R (Kogelnik & Li, Appl. Opt. 5 (1966) 1550, from memory)."""
+    from objectives.spectrum.trace import spectral_trace
+
+    a, b = 1.0, 0.6
+    g = 1.0 - 2 * b / (a * a / b)
+    trace = 2 * (2 * g * g - 1)
+    amplitude = 4 * b / (np.pi * np.sqrt(2 - trace))
+    spec = eigenvalues(Curve(ellipse, jnp.array([a, b])), k_max=24.0, boundary="dirichlet")
+    ell = np.linspace(2.0, 2.8, 161)
+    f = spectral_trace(spec.wavenumbers, ell, 5.0, 24.0)
+    assert abs(ell[np.argmax(np.abs(f))] - 4 * b) < 0.02
+    peak = spectral_trace(spec.wavenumbers, [4 * b], 5.0, 24.0)[0]
+    np.testing.assert_allclose(2 * abs(peak), amplitude, rtol=0.03)
+    assert abs(np.angle(peak) - np.pi / 2) < 0.05 * np.pi
