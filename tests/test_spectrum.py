@@ -346,5 +346,5 @@ def test_wave_trace_peak_matches_bouncing_ball_orbit():
     f = spectral_trace(spec.wavenumbers, ell, 5.0, 24.0)
     assert abs(ell[np.argmax(np.abs(f))] - 4 * b) < 0.02
     peak = spectral_trace(spec.wavenumbers, [4 * b], 5.0, 24.0)[0]
-    np.testing.assert_allclose(2 * abs(peak), amplitude, rtol=0.03)
+    np.testing.assert_allclose(2 * abs(peak), amplitude, rtol=0.01)
     assert abs(np.angle(peak) - np.pi / 2) < 0.05 * np.pi
