@@ -52,9 +52,8 @@ def disk_reference(count: int, boundary: str, radius: float = 1.0) -> np.ndarray
     memory). Zeros from scipy.special.jn_zeros / jnp_zeros."""
     out = [0.0] if boundary == "neumann" else []
     for n in range(40):
+        # (jnp_zeros(0, ·) skips the trivial zero j'₀₀ = 0, added above as λ₀)
         zeros = sp.jn_zeros(n, 12) if boundary == "dirichlet" else sp.jnp_zeros(n, 12)
-        if n == 0 and boundary == "neumann":
-            zeros = zeros  # jnp_zeros(0, ·) skips the trivial zero
         out += list(zeros**2 / radius**2) * (1 if n == 0 else 2)
     return np.sort(out)[:count]
 
@@ -221,8 +220,8 @@ def test_non_star_shaped_domain_resolved_and_counted():
     curve = Curve(crescent, CRESCENT)
     nodes = nodes_of(curve, 256)
     # star-shaped about p ⇔ (x − p)·ν > 0 on the boundary: a linear feasibility problem
-    feasible = linprog(np.zeros(2), A_ub=nodes.normal, b_ub=np.sum(nodes.x * nodes.normal, 1) - 1e-9,
-                       bounds=[(None, None)] * 2)
+    bound = np.sum(nodes.x * nodes.normal, axis=1) - 1e-9
+    feasible = linprog(np.zeros(2), A_ub=nodes.normal, b_ub=bound, bounds=[(None, None)] * 2)
     assert feasible.status == 2  # infeasible: no such p
     spec = eigenvalues(curve, 30, "dirichlet")
     assert spec.status == Status.ok, spec.message

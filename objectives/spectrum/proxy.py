@@ -41,7 +41,8 @@ class Proxy:
 
 
 def chebyshev_points(lower: float, upper: float, degree: int) -> np.ndarray:
-    return 0.5 * (lower + upper) + 0.5 * (upper - lower) * np.cos(np.pi * np.arange(degree + 1) / degree)
+    angles = np.pi * np.arange(degree + 1) / degree
+    return 0.5 * (lower + upper) + 0.5 * (upper - lower) * np.cos(angles)
 
 
 def _coefficients(values: np.ndarray) -> np.ndarray:

@@ -357,7 +357,8 @@ def _solve(nodes, boundary, count, k_max, k_min, radius, quadrature_nodes, clust
         b, centres, rho = _next_chunk(a, k_hi, radius, CHUNK_LENGTH)
         proxy = build_proxy(geo, a, b, tolerance=1e-13)
         if proxy.tail > 1e-11:
-            status, message = Status.solver_failed, f"Chebyshev proxy unresolved on [{a:.3g}, {b:.3g}]"
+            status = Status.solver_failed
+            message = f"Chebyshev proxy unresolved on [{a:.3g}, {b:.3g}]"
         for c in centres:
             scan(proxy, c, rho)
         a = b

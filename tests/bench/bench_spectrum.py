@@ -15,7 +15,6 @@ from __future__ import annotations
 import sys
 import time
 
-import jax
 import jax.numpy as jnp
 import numpy as np
 
