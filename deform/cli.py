@@ -77,6 +77,8 @@ def _measure_args(p):
                    help="also compute the first N Laplace eigenvalues (boundary integral solver)")
     p.add_argument("--boundary", choices=("dirichlet", "neumann"), default="dirichlet",
                    help="boundary condition for --eigenvalues (default: dirichlet)")
+    p.add_argument("--max-period", type=_positive_int, default=7, metavar="Q",
+                   help="periodic orbits p/q with 2 ≤ q ≤ Q (default 7; 1 skips the orbit sections)")
 
 
 def _measure_run(args) -> int:
@@ -84,7 +86,8 @@ def _measure_run(args) -> int:
 
     config, shape = _load_shape(args.config)
     options = MeasureOptions(resolution=args.resolution or config.measure.resolution,
-                             eigenvalues=args.eigenvalues, boundary=args.boundary)
+                             eigenvalues=args.eigenvalues, boundary=args.boundary,
+                             max_period=args.max_period)
     report, tables = measure(shape, options)
     if args.json:
         print(json.dumps(json_ready(report), allow_nan=False))

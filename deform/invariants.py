@@ -160,3 +160,4 @@ register(InvariantFamily(
      ("tol", 1e-9), ("degenerate_tol", 1e-7), ("free", False))))
 
 from . import eigen as _eigen  # noqa: E402,F401  (registers eigenvalues_dirichlet/_neumann)
+from . import orbit_invariants as _orbits  # noqa: E402,F401  (orbit_lengths, orbit_traces, …)

@@ -16,6 +16,7 @@ import numpy as np
 
 from objectives import geometry
 
+from . import orbit_report
 from .eigen import eigenvalue_section
 from .shape import Shape
 
@@ -25,6 +26,7 @@ class MeasureOptions:
     resolution: int = 256
     eigenvalues: int = 0            # > 0: add the first N Laplace eigenvalues
     boundary: str = "dirichlet"     # boundary condition for the eigenvalue section
+    max_period: int = 7             # periodic orbits p/q with q ≤ max_period (< 2: no orbit sections)
 
 
 @dataclass(frozen=True)
@@ -84,6 +86,12 @@ def geometry_section(shape: Shape, options: MeasureOptions):
 SECTIONS: list[Section] = [Section("geometry", geometry_section),
                            Section("eigenvalues", eigenvalue_section,
                                    lambda options: options.eigenvalues > 0)]
+
+_with_orbits = lambda options: options.max_period >= 2  # noqa: E731
+SECTIONS += [Section("bouncing balls", orbit_report.bouncing_balls_section, _with_orbits),
+             Section("periodic orbits", orbit_report.orbits_section, _with_orbits),
+             Section("wave trace", orbit_report.wave_section, _with_orbits),
+             Section("class hypotheses", orbit_report.hypotheses_section, _with_orbits)]
 
 
 def measure(shape: Shape, options: MeasureOptions = MeasureOptions()):

@@ -867,8 +867,9 @@ def class_hypotheses(curve: Curve, orbits: OrbitSet, index: int, resonance_order
 
 def polar_angles(curve: Curve, t: Array) -> np.ndarray:
     """Polar angles in [0, 2π) of the bounce points about the origin."""
-    pts = np.asarray(jax.vmap(curve)(jnp.asarray(t)))
-    return np.mod(np.arctan2(pts[:, 1], pts[:, 0]), 2 * np.pi)
+    pts = np.asarray(_points(curve, jnp.asarray(t)))
+    angles = np.mod(np.arctan2(pts[:, 1], pts[:, 0]), 2 * np.pi)
+    return np.where(angles >= 2 * np.pi, 0.0, angles)  # mod can round up to 2π
 
 
 __all__ = ["OrbitSet", "BRANCHES", "KINDS", "rotation_numbers", "find_orbits", "refine_orbits",
