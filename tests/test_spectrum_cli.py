@@ -105,3 +105,23 @@ def test_eigenvalue_invariant_family_is_differentiable():
 def test_load_shape_rejects_missing_files(tmp_path):
     with pytest.raises(Exception, match="no such"):
         load_shape(str(tmp_path / "nothing.toml"))
+
+
+def test_compare_reads_run_records(tmp_path, capsys):
+    """A record's shape at a chosen step (HDF5 written by deform.record) against a config."""
+    from deform.record import FORMAT, Column, open_writer
+
+    text = '[shape]\nfamily = "ellipse"\na = 1.0\nb = 0.6\n'
+    config = _write(tmp_path, "ell.toml", text)
+    record = tmp_path / "run.h5"
+    tables = {"steps": {"step": Column((), "i8"), "params": Column((2,), "f8", ("a", "b"))}}
+    with open_writer(record, {"format": FORMAT, "config": text}, tables) as writer:
+        writer.append("steps", {"step": 0, "params": np.array([1.0, 0.6])})
+        writer.append("steps", {"step": 1, "params": np.array([1.0, 0.61])})
+    assert main(["compare", config, str(record), "--step", "0", "--eigenvalues", "2",
+                 "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["distinguishable"] is False
+    assert main(["compare", config, str(record), "--eigenvalues", "2", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["distinguishable"] is True
+    assert main(["compare", config, str(record), "--step", "7"]) == 2
+    assert "--step" in capsys.readouterr().err
