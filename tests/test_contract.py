@@ -1,0 +1,199 @@
+"""The shared contract suite: every shape family and every registered invariant family.
+
+Walks ``deform.families.FAMILIES`` and ``deform.invariants.REGISTRY`` at collection time, so
+families added later are checked automatically: jit equals eager, float64 in and out, finite
+gradients that agree with a central difference, invariance under rigid motions, reflection and
+reparametrization (a geometric invariant does not see them; common practice), and no
+recompilation across calls with new parameters of the same shape.
+
+A family that is too slow at its defaults gets a cheap option set in ``CHEAP_OPTIONS``; one
+that is only defined for a restricted class of shapes lists the transformations that keep it
+in that class in ``TRANSFORMS``. Nothing is skipped: a new shape family without an example in
+``SHAPE_EXAMPLES`` fails ``test_every_shape_family_has_an_example``.
+"""
+
+from __future__ import annotations
+
+import jax
+import jax.numpy as jnp
+import numpy as np
+import pytest
+
+from deform import invariants
+from deform.config import Reader, parse_shape
+from deform.families import FAMILIES
+from deform.shape import from_family, reflected, reparametrized, rotated, translated
+from objectives import geometry
+from objectives.status import Status
+
+# ------------------------------------------------------------------------------------------
+# Shape families
+
+SHAPE_EXAMPLES = {
+    "polar": {"family": "polar", "radius": 1.0, "cos": [0.0, 0.1, 0.03], "sin": [0.0, 0.0, 0.02],
+              "modes": 4},
+    "support": {"family": "support", "mean": 1.0, "cos": [0.0, 0.05, 0.02],
+                "sin": [0.0, 0.0, -0.01], "modes": 4},
+    "curve": {"family": "curve", "terms": [[1, 1.0, 0.0], [-1, 0.15, 0.05], [2, 0.03, 0.01]]},
+    "ellipse": {"family": "ellipse", "a": 1.0, "b": 0.6},
+    "disk": {"family": "disk", "radius": 1.3},
+}
+
+
+def example_family(name):
+    return parse_shape(Reader(dict(SHAPE_EXAMPLES[name]), "shape"))
+
+
+def test_every_shape_family_has_an_example():
+    assert set(FAMILIES) <= set(SHAPE_EXAMPLES), set(FAMILIES) - set(SHAPE_EXAMPLES)
+
+
+def _perturbed(params, seed, size=0.01):
+    rng = np.random.default_rng(seed)
+    return jnp.asarray(np.asarray(params) + size * rng.standard_normal(np.shape(params)))
+
+
+@pytest.mark.parametrize("name", sorted(FAMILIES))
+def test_shape_family_contract(name):
+    family = example_family(name)
+    shape = from_family(family)
+    params = shape.params
+    assert params.dtype == jnp.float64 and params.shape == (family.n_params,)
+    t = jnp.linspace(0.0, 2 * np.pi, 7)
+
+    traces = []
+
+    def points(p):
+        traces.append(1)
+        return jax.vmap(lambda s: family.boundary(p, s))(t)
+
+    jitted = jax.jit(points)
+    for seed in range(3):
+        p = _perturbed(params, seed)
+        eager, compiled = np.asarray(points(p)), np.asarray(jitted(p))
+        assert compiled.dtype == np.float64 and compiled.shape == (t.size, 2)
+        assert np.allclose(eager, compiled, rtol=1e-14, atol=1e-14), seed
+    assert len(traces) == 4, "recompiled for new parameter values"
+
+    # gradients: area against a central difference in a seeded random direction
+    if family.n_params:
+        area = jax.jit(lambda p: geometry.area(shape.with_params(p).curve(), 128))
+        grad = np.asarray(jax.grad(area)(params))
+        assert np.all(np.isfinite(grad))
+        v = np.random.default_rng(9).standard_normal(family.n_params)
+        h = 1e-6
+        fd = (float(area(params + h * v)) - float(area(params - h * v))) / (2 * h)
+        assert abs(grad @ v - fd) < 1e-7 * (1 + abs(fd)), (grad @ v, fd)
+
+    # rigid motions, reflection and reparametrization leave area, perimeter and ∮κ² ds unchanged
+    def scalars(s):
+        c = s.curve()
+        return np.array([float(geometry.area(c, 128)), float(geometry.perimeter(c, 128)),
+                         float(geometry.curvature_moment(c, 2, 128))])
+
+    moved = reflected(reparametrized(translated(rotated(shape, 0.7), [0.3, -0.2]), 0.4, 0.2))
+    assert np.allclose(scalars(shape), scalars(moved), rtol=1e-10)
+
+
+# ------------------------------------------------------------------------------------------
+# Invariant families
+
+# A convex, mirror-symmetric (x-axis) test drum: every invariant family is defined on it.
+CONTRACT_SHAPE = {"family": "polar", "radius": 1.0, "cos": [0.0, 0.08, 0.03], "modes": 4,
+                  "symmetry": "mirror"}
+
+CHEAP_OPTIONS = {
+    "area": {"resolution": 64},
+    "perimeter": {"resolution": 64},
+    "curvature_moments": {"resolution": 64},
+    "heat_dirichlet": {"resolution": 64},
+    "heat_neumann": {"resolution": 64},
+    "symmetric_orbits": {"max_period": 2, "steps": 4},
+    "eigenvalues_dirichlet": {"count": 3},
+    "eigenvalues_neumann": {"count": 3},
+}
+
+ALL_MOTIONS = ("rotate", "translate", "reparametrize", "reflect")
+TRANSFORMS = {
+    # orbits are marked by the x-axis mirror and the point t = 0: only the mirror itself and an
+    # odd reparametrization (t ↦ t + w sin t fixes t = 0, π) keep the marking
+    "symmetric_orbits": ("reflect",),
+}
+
+# relative tolerance of the invariance check (quadrature/solver accuracy at the cheap options)
+INVARIANCE_RTOL = {"eigenvalues_dirichlet": 1e-6, "eigenvalues_neumann": 1e-6}
+FD_RTOL = {"eigenvalues_dirichlet": 1e-4, "eigenvalues_neumann": 1e-4}
+
+
+def _contract_shape():
+    return from_family(parse_shape(Reader(dict(CONTRACT_SHAPE), "shape")))
+
+
+def _moved(shape, kinds):
+    if "rotate" in kinds:
+        shape = rotated(shape, 0.7)
+    if "translate" in kinds:
+        shape = translated(shape, [0.3, -0.2])
+    if "reparametrize" in kinds:
+        shape = reparametrized(shape, 0.4, 0.2)
+    if "reflect" in kinds:
+        shape = reflected(shape)
+    return shape
+
+
+def _build(name):
+    return invariants.build(name, CHEAP_OPTIONS.get(name, {}))
+
+
+@pytest.mark.parametrize("name", sorted(invariants.REGISTRY))
+def test_invariant_family_contract(name):
+    evaluator = _build(name)
+    shape = _contract_shape()
+    curve = shape.curve()
+    state = evaluator.init(curve)
+
+    values, _, status = evaluator.evaluate(curve, state)
+    values = np.asarray(values)
+    assert values.dtype == np.float64 and values.ndim == 1
+    assert len(evaluator.labels) == values.size and all(isinstance(x, str) for x in evaluator.labels)
+    assert Status(int(status)) == Status.ok, Status(int(status)).name
+    assert np.all(np.isfinite(values))
+
+    traces = []
+
+    def run(s, st):
+        traces.append(1)
+        return evaluator.evaluate(s.curve(), st)
+
+    jitted = jax.jit(run)
+    compiled, _, jstatus = jitted(shape, state)
+    assert np.asarray(compiled).dtype == np.float64
+    assert np.allclose(np.asarray(compiled), values, rtol=1e-10, atol=1e-12)
+    assert int(jstatus) == int(status)
+    for seed in (1, 2):
+        again, _, _ = jitted(shape.with_params(_perturbed(shape.params, seed, 1e-3)), state)
+        assert np.all(np.isfinite(np.asarray(again)))
+    assert len(traces) == 1, f"{name}: recompiled for new parameter values"
+
+    # finite gradient, and a directional central difference (seeded direction)
+    weights = jnp.asarray(np.random.default_rng(3).standard_normal(values.size))
+
+    def scalar(p):
+        return jnp.sum(weights * run(shape.with_params(p), state)[0])
+
+    grad = np.asarray(jax.jit(jax.grad(scalar))(shape.params))
+    assert np.all(np.isfinite(grad)), name
+    v = np.random.default_rng(4).standard_normal(grad.size)
+    h = 1e-5
+    f = jax.jit(scalar)
+    fd = (float(f(shape.params + h * v)) - float(f(shape.params - h * v))) / (2 * h)
+    rtol = FD_RTOL.get(name, 1e-6)
+    assert abs(grad @ v - fd) <= rtol * (abs(fd) + np.linalg.norm(grad)), (name, grad @ v, fd)
+
+    # invariance under the allowed rigid motions, reflection and reparametrization
+    moved = _moved(shape, TRANSFORMS.get(name, ALL_MOTIONS)).curve()
+    moved_values, _, moved_status = evaluator.evaluate(moved, evaluator.init(moved))
+    assert Status(int(moved_status)) == Status.ok
+    rtol = INVARIANCE_RTOL.get(name, 1e-9)
+    assert np.allclose(np.asarray(moved_values), values, rtol=rtol, atol=rtol), (
+        name, np.asarray(moved_values) - values)
