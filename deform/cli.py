@@ -142,6 +142,8 @@ COMMANDS: list[Command] = [
             runcli.demo_run),
     Command("scan", "first-order rigidity scan: Jacobian rank, null modes, path (HDF5)",
             scanspec.scan_args, scanspec.scan_run),
+    Command("hunt", "hunt pairs of different shapes whose kept invariants agree (HDF5)",
+            scanspec.hunt_args, scanspec.hunt_run),
 ]
 
 

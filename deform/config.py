@@ -14,7 +14,7 @@ from typing import Any, Callable
 
 from .errors import ConfigError
 from .families import FAMILIES, Disk, Ellipse, FourierCurve, Polar, ShapeFamily, Support
-from .scanspec import ScanSpec, parse_scan
+from .scanspec import HuntSpec, ScanSpec, parse_hunt, parse_scan
 from .searchspec import InvariantOptions, SearchSpec, parse_invariants, parse_search
 from .symmetry import KINDS, Symmetry
 
@@ -227,6 +227,7 @@ class Config:
     search: SearchSpec | None = None
     invariants: InvariantOptions = InvariantOptions()
     scan: ScanSpec | None = None
+    hunt: HuntSpec | None = None
 
 
 SECTIONS: dict[str, Callable[[Reader], Any]] = {
@@ -235,6 +236,7 @@ SECTIONS: dict[str, Callable[[Reader], Any]] = {
     "search": parse_search,
     "invariants": parse_invariants,
     "scan": parse_scan,
+    "hunt": parse_hunt,
 }
 
 

@@ -111,3 +111,67 @@ def scan_run(args) -> int:
     from .rigidity import scan_run as run
 
     return run(args)
+
+
+@dataclass(frozen=True)
+class HuntSpec:
+    """[hunt]: two shapes of the [shape] family are optimized together so that the ``keep``
+    invariants agree (relative mismatch, per-invariant scales from the base shape) while their
+    isometry-invariant distance D stays above ``floor``; every start is its own record."""
+
+    keep: tuple[str, ...]
+    check: tuple[str, ...] = ()
+    starts: int = 8
+    seed: int = 0
+    steps: int = 300
+    learning_rate: float = 0.01
+    floor: float = 0.05
+    weight: float = 1.0
+    spread: float = 0.05
+    decay: float = 2.0
+    tolerance: float = 1e-10
+    check_tolerance: float = 1e-6
+    polish: int = 20
+    workers: int = 1
+    output: str = "runs/hunt"
+    top: int = 5
+
+
+def parse_hunt(r) -> HuntSpec:
+    keep = _check_families(r, "keep")
+    check = _check_families(r, "check", allow_empty=True)
+    spec = HuntSpec(
+        keep=keep,
+        check=check,
+        starts=r.integer("starts", 8, minimum=1, maximum=100000),
+        seed=r.integer("seed", 0, minimum=0),
+        steps=r.integer("steps", 300, minimum=0, maximum=10**6),
+        learning_rate=r.number("learning_rate", 0.01, positive=True),
+        floor=r.number("floor", 0.05, positive=True),
+        weight=r.number("weight", 1.0, positive=True),
+        spread=r.number("spread", 0.05, minimum=0.0),
+        decay=r.number("decay", 2.0, minimum=0.0),
+        tolerance=r.number("tolerance", 1e-10, positive=True),
+        check_tolerance=r.number("check_tolerance", 1e-6, positive=True),
+        polish=r.integer("polish", 20, minimum=0, maximum=1000),
+        workers=r.integer("workers", 1, minimum=1, maximum=256),
+        output=r.string("output", "runs/hunt"),
+        top=r.integer("top", 5, minimum=1),
+    )
+    r.done()
+    return spec
+
+
+def hunt_args(p) -> None:
+    p.add_argument("config", help="config file with [shape] and [hunt] tables")
+    p.add_argument("--output", default=None, help="directory for the records (default: [hunt] "
+                   "output, runs/hunt)")
+    p.add_argument("--starts", type=int, default=None, help="number of random starts")
+    p.add_argument("--workers", type=int, default=None, help="local worker processes")
+    p.add_argument("--plots", default=None, help="also write PNG figures of the best pair here")
+
+
+def hunt_run(args) -> int:
+    from .hunt import hunt_run as run
+
+    return run(args)
