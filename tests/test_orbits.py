@@ -300,3 +300,40 @@ def test_robust_against_a_four_times_finer_global_search():
         fine = orb.find_orbits(curve, 4, grid=128)
         n = 2 * len(orb.rotation_numbers(4))
         assert np.max(np.abs(coarse.length[:n] - fine.length[:n])) < 1e-10, (seed, trial)
+
+
+def test_invariant_families_and_measure_report():
+    # Registry contract: labels fixed at build, cold init, jittable warm evaluate equal to the
+    # cold values, identity re-check ok; bad options are one-line ConfigErrors.
+    from deform.errors import ConfigError
+    from deform.invariants import build
+    from deform.measure import MeasureOptions, measure
+
+    curve = egg_curve()
+    for name, options in (("orbit_lengths", {"max_period": 3}), ("wave", {"max_period": 3}),
+                          ("bouncing_balls", {"count": 2})):
+        ev = build(name, options)
+        state = ev.init(curve)
+        evaluate = jax.jit(ev.evaluate) if name == "orbit_lengths" else ev.evaluate
+        values, state, status = evaluate(curve, state)
+        assert len(ev.labels) == values.shape[0] and int(status) == Status.ok, name
+        assert int(ev.recheck(curve, state)[1]) == Status.ok
+    ev = build("orbit_lengths", {"max_period": 3, "branches": ["max"]})
+    assert ev.labels == ("L[1/2,max]", "L[1/3,max]")
+    values = ev.evaluate(curve, ev.init(curve))[0]
+    cold = orb.find_orbits(curve, 3)
+    np.testing.assert_allclose(values, cold.length[[0, 2]], atol=1e-12)
+    for bad in ({"max_period": 1}, {"branches": ["longest"]}, {"nodes": 3}):
+        with pytest.raises(ConfigError, match="invariants.orbit_lengths"):
+            build("orbit_lengths", bad)
+
+    shape = Shape(ELLIPSE, jnp.array([1.0, 0.6]))
+    report, tables = measure(shape, MeasureOptions(max_period=3))
+    assert [set(b) for b in report["bouncing_balls"]] == [
+        {"length", "kind", "trace", "angle", "endpoints", "admissible"}] * 2
+    assert {b["kind"] for b in report["bouncing_balls"]} == {"elliptic", "hyperbolic"}
+    assert all(set(o) == {"p", "q", "branch", "length", "trace", "residual"}
+               for o in report["orbits"])
+    assert len(report["orbits"]) == 4
+    assert all({"length", "amplitude", "phase"} <= set(w) for w in report["wave"])
+    assert report["class_hypotheses"]["checks"]["third_derivative"]["passed"] is False
