@@ -107,8 +107,30 @@ def step_table(record: Record, limit: int | None = None) -> list[str]:
     return lines
 
 
+# Records of other kinds are reviewed by the module that writes them: kind → (module, inspect
+# function returning lines, plot function (record, directory) → paths).
+REVIEWERS = {
+    "rigidity": ("deform.rigidity", "inspect_lines", "plot_scan_record"),
+    "hunt": ("deform.hunt", "inspect_lines", "plot_hunt_record"),
+    "hunt_start": ("deform.hunt", "inspect_lines", "plot_hunt_record"),
+}
+
+
+def _reviewer(record: Record, which: int):
+    import importlib
+
+    entry = REVIEWERS.get(str(record.attrs.get("kind")))
+    return None if entry is None else getattr(importlib.import_module(entry[0]), entry[which])
+
+
 def inspect_text(record: Record, limit: int | None = 60) -> str:
     attrs = record.attrs
+    custom = _reviewer(record, 1)
+    if custom is not None:
+        head = [f"record: {record.path}", f"kind: {attrs.get('kind')}  seed: {attrs.get('seed')}"
+                f"  started: {attrs.get('started')}", f"config ({attrs.get('source', '?')}):"]
+        head += ["  " + line for line in record.config_text.rstrip().splitlines()]
+        return "\n".join(head + ["", "summary:"] + ["  " + line for line in custom(record)])
     versions = record.versions
     out = [f"record: {record.path}",
            f"kind: {attrs.get('kind')}  seed: {attrs.get('seed')}  started: {attrs.get('started')}"
@@ -130,6 +152,9 @@ def inspect_text(record: Record, limit: int | None = 60) -> str:
 
 def plot_record(record: Record, directory: str | Path | None = None) -> list[Path]:
     """Write the review figures as PNGs; returns their paths."""
+    custom = _reviewer(record, 2)
+    if custom is not None:
+        return custom(record, directory)
     import matplotlib
 
     matplotlib.use("Agg")

@@ -63,6 +63,7 @@ def test_area_and_perimeter_alone_admit_far_apart_pairs(tmp_path):
     assert "verdict: accepted" in "\n".join(inspect_lines(start))
     names = {p.name for p in plot_hunt_record(summary, tmp_path / "png")}
     assert names == {"pair.png", "progress.png"}
+    assert main(["inspect", str(tmp_path / "hunt.h5")]) == 0  # dispatched on the record kind
 
 
 def test_area_and_perimeter_pin_down_ellipses(tmp_path):

@@ -120,6 +120,10 @@ def test_scan_config_runs_and_writes_record_and_figures(tmp_path):
     assert record.attrs["kind"] == "rigidity"
     lines = "\n".join(inspect_lines(record))
     assert "rank as families are added" in lines and "path (ellipses)" in lines
+    # `deform inspect` / `deform plot` dispatch on the record kind
+    assert main(["inspect", str(tmp_path / "scan.h5")]) == 0
+    assert main(["plot", str(tmp_path / "scan.h5"), "--out", str(tmp_path / "again")]) == 0
+    assert (tmp_path / "again" / "rank_profile.png").exists()
 
 
 def test_null_modes_are_drawn(tmp_path):
