@@ -153,3 +153,15 @@ def test_bad_scan_configs_are_one_line_errors(tmp_path, capsys):
     assert main(["scan", str(bad)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "scan: missing" in err[0]
+
+
+def test_generic_orbit_lengths_flagged_near_the_disk():
+    # The orbit engine's Birkhoff orbit lengths near the disk (r = 1 + 10⁻⁷ cos 2θ): the p/q
+    # orbits are nearly a rotation family (Birkhoff 1927), the length Hessian is nearly singular,
+    # and the scan reports the family as not smooth instead of a Jacobian.
+    family = Polar.build(1.0, [], [], modes=3)
+    shape = Shape(family, jnp.array([1.0, 1e-7, 0.0, 0.0]))
+    result = rigidity_scan(shape, build_evaluators([("orbit_lengths", {"max_period": 3})]))
+    assert not result.smooth and result.jacobian is None
+    assert result.statuses["orbit_lengths"] == "degenerate"
+    assert "orbit_lengths: degenerate" in result.message
