@@ -217,24 +217,54 @@ def rigidity_scan(shape: Shape, evaluators: Sequence[NamedEvaluator], rank_tol: 
     return result
 
 
+def _period(label: str) -> int | None:
+    """q of an orbit label such as ``L1/3[0]`` or ``L[2/5,max]`` (None if it names no p/q)."""
+    import re
+
+    found = re.search(r"(\d+)/(\d+)", label)
+    return int(found.group(2)) if found else None
+
+
+def profile_groups(result: ScanResult) -> list[tuple[str, np.ndarray]]:
+    """Row groups in the order they are added: families in the listed order, and within an
+    orbit family its rows by increasing period q (``name q≤Q``)."""
+    fam = np.asarray(result.row_family)
+    periods = np.array([_period(lbl) or 0 for lbl in result.labels])
+    groups = []
+    for name in result.families:
+        rows = fam == name
+        qs = sorted(set(periods[rows]) - {0})
+        if len(qs) > 1:
+            base = rows & (periods == 0)
+            if base.any():
+                groups.append((f"{name} (no period)", base))
+            for q in qs:
+                groups.append((f"{name} q≤{q}", rows & (periods == q)))
+        else:
+            groups.append((name, rows))
+    return groups
+
+
 def rank_profile(result: ScanResult) -> list[tuple[str, int, int, float]]:
-    """Cumulative (family, rows so far, rank, smallest kept σ/σ₁) as families are added in order."""
+    """Cumulative (group, rows so far, rank, smallest kept σ/σ₁) as row groups are added in the
+    order of :func:`profile_groups` (families, orbit families by increasing period)."""
     if not result.smooth:
         return []
     out = []
-    fam = np.asarray(result.row_family)
-    for i, name in enumerate(result.families):
-        rows = np.isin(fam, result.families[: i + 1])
-        sing = np.linalg.svd(result.reduced[rows], compute_uv=False)
+    used = np.zeros(len(result.labels), dtype=bool)
+    for name, rows in profile_groups(result):
+        used = used | rows
+        sing = np.linalg.svd(result.reduced[used], compute_uv=False)
         rank = numerical_rank(sing, result.rank_tol)
         weakest = float(sing[rank - 1] / sing[0]) if rank else 0.0
-        out.append((name, int(rows.sum()), rank, weakest))
+        out.append((name, int(used.sum()), rank, weakest))
     return out
 
 
 @dataclass
 class PathScan:
-    """Smallest singular values along a path of base shapes."""
+    """Smallest singular values along a path of base shapes (among the min(rows, dimension)
+    that are not zero by counting)."""
 
     parameter: np.ndarray
     smallest: np.ndarray        # (points, count) smallest σ of J̃, NaN where not smooth
@@ -260,8 +290,9 @@ def path_scan(shapes: Sequence[Shape], parameter: Sequence[float],
         messages.append(result.message)
         if result.smooth:
             states = result.extra["states"]
-            sing = np.zeros(result.dimension)
-            sing[: result.singular_values.size] = result.singular_values[: result.dimension]
+            # the min(rows, dimension) singular values that can be nonzero; with fewer rows
+            # than directions the remaining directions are null by counting alone
+            sing = result.singular_values[: min(len(result.labels), result.dimension)]
             low = np.sort(sing)[:count]
             smallest[j, : low.size] = low
             ranks[j] = result.rank

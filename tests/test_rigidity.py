@@ -101,6 +101,10 @@ def test_orbit_lengths_not_smooth_at_the_disk_symmetric_ones_are():
     assert "not smooth" in free.message and "degenerate" in free.message
     marked = rigidity_scan(shape, build_evaluators([("symmetric_orbits", {"max_period": 3})]))
     assert marked.smooth and marked.dimension == 3 and marked.rank == 3
+    # rank as orbits are added by increasing period: q = 2 sees radius and cos 2θ, q = 3 adds cos 3θ
+    profile = rank_profile(marked)
+    assert [(name, rank) for name, _, rank, _ in profile] == [
+        ("symmetric_orbits q≤2", 2), ("symmetric_orbits q≤3", 3)]
 
 
 def test_scan_config_runs_and_writes_record_and_figures(tmp_path):
@@ -165,3 +169,24 @@ def test_generic_orbit_lengths_flagged_near_the_disk():
     assert not result.smooth and result.jacobian is None
     assert result.statuses["orbit_lengths"] == "degenerate"
     assert "orbit_lengths: degenerate" in result.message
+
+
+def test_path_from_a_search_record(tmp_path):
+    # A continuation record's accepted shapes as the path: a disk then two ovals. Area and
+    # perimeter have rank 1 at the disk and 2 elsewhere (first variations, as above).
+    from deform.record import Column, open_writer, provenance
+    from deform.rigidity import path_scan, record_path
+    from deform.scanspec import PathSpec
+
+    n = POLAR.n_params
+    columns = {"steps": {"step": Column((), "i8"), "params": Column((n,), "f8")}}
+    with open_writer(tmp_path / "run.h5", provenance("continuation", "", "test", 0),
+                     columns) as writer:
+        for step, params in enumerate((DISK, EGG, 0.5 * (DISK + EGG))):
+            writer.append("steps", {"step": step, "params": np.asarray(params)})
+    shapes, parameter = record_path(PathSpec(kind="record", record=str(tmp_path / "run.h5")),
+                                    POLAR)
+    scan = path_scan(shapes, parameter, AREA_PERIMETER, count=2)
+    assert list(parameter) == [0.0, 1.0, 2.0]
+    assert list(scan.ranks) == [1, 2, 2]
+    assert scan.smallest[0, 1] > 1e-3 and scan.smallest[0, 0] < 1e-12  # σ_min vs σ_min2 at the disk
