@@ -216,6 +216,24 @@ def _move_objective(problem: Problem, ctx: Context, x, states):
     return -0.5 * (q - problem.move_target) ** 2
 
 
+def _linearized(problem: Problem, x, states):
+    """(values, ∂values/∂x, new states, status codes) in one forward-mode pass."""
+
+    def f(p):
+        values, new_states, codes = _evaluate_all(problem, p, states)
+        return values, (values, new_states, codes)
+
+    J, (values, new_states, codes) = jax.jacfwd(f, has_aux=True)(x)
+    return values, J, new_states, codes
+
+
+def _target_quantity(problem: Problem, x, values, J):
+    """(q, ∇q) of a coefficient or invariant-entry move, from values and their Jacobian."""
+    if problem.move_kind == "coefficient":
+        return x[problem.move_index], jnp.zeros_like(x).at[problem.move_index].set(1.0)
+    return values[problem.move_index], J[problem.move_index]
+
+
 def constraint_status(problem: Problem, x):
     """self_intersection / not_convex (when asked) / nonfinite for a candidate shape."""
     curve = problem.curve(x)
@@ -269,12 +287,20 @@ def make_continuation(problem: Problem, spec: SearchSpec):
     def update(ctx: Context, state: SearchState):
         TRACES["continuation"] += 1
         x, states, w = state.params, state.evaluator_states, ctx.weights
-        jacobian = jax.jacfwd(lambda p: _residual(problem, ctx, p, states)[0])
+        kept = lambda v, J: ((v[:problem.n_kept] - ctx.targets) / ctx.scales,  # noqa: E731
+                             J[:problem.n_kept] / ctx.scales[:, None])
+        values_x, J_x, _, _ = _linearized(problem, x, states)
         # all linear algebra in the weighted coordinates y (x = x₀ + W y)
-        projector, pinv_apply, _, null_dim = _null_space(jacobian(x) * w, cs.rank_tolerance)
+        projector, pinv_apply, _, null_dim = _null_space(kept(values_x, J_x)[1] * w,
+                                                         cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
-        objective, move_grad = jax.value_and_grad(
-            lambda p: _move_objective(problem, ctx, p, states))(x)
+        if problem.move_kind == "distance":
+            objective, move_grad = jax.value_and_grad(
+                lambda p: _move_objective(problem, ctx, p, states))(x)
+        else:
+            q, dq = _target_quantity(problem, x, values_x, J_x)
+            objective, move_grad = -0.5 * (q - problem.move_target) ** 2, -(
+                q - problem.move_target) * dq
         along_move, move_norm = _unit(projector @ (w * move_grad))
         along_prev, prev_norm = _unit(projector @ state.tangent)
         along_random, _ = _unit(projector @ jax.random.normal(sub, x.shape))
@@ -284,30 +310,29 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         h = state.step_size
         if problem.move_kind != "distance":
             # do not overshoot the target: a linear estimate of the remaining distance
-            values0 = _evaluate_all(problem, x, states)[0]
-            gap = jnp.abs(_move_quantity(problem, ctx, x, values0) - problem.move_target)
-            rate = jnp.abs(jax.grad(lambda p: _move_quantity(
-                problem, ctx, p, _evaluate_all(problem, p, states)[0]))(x) @ direction)
-            h = jnp.minimum(h, gap / jnp.maximum(rate, 1e-12))
+            rate = jnp.abs(dq @ direction)
+            h = jnp.minimum(h, jnp.abs(q - problem.move_target) / jnp.maximum(rate, 1e-12))
         predicted = x + h * direction
-        r0, (_, states0, _) = _residual(problem, ctx, predicted, states)
 
         def not_done(carry):
-            _, _, r, it = carry
+            _, values, J, _, _, it = carry
+            r = kept(values, J)[0]
             return (it < cs.corrector_iterations) & ~(jnp.max(jnp.abs(r)) <= cs.tolerance)
 
         def correct(carry):
-            p, st, r, it = carry
+            p, values, J, st, codes, it = carry
+            r, Jr = kept(values, J)
             if cs.corrector == "newton":  # Gauss–Newton: minimal-norm step with J at p
-                p = p - w * (jnp.linalg.pinv(jacobian(p) * w, rtol=cs.rank_tolerance) @ r)
+                p = p - w * (jnp.linalg.pinv(Jr * w, rtol=cs.rank_tolerance) @ r)
+                values, J, st, codes = _linearized(problem, p, st)
             else:  # chord: J frozen at the base point
                 p = p - w * pinv_apply(r)
-            r, (_, st, _) = _residual(problem, ctx, p, st)
-            return p, st, r, it + 1
+                values, st, codes = _evaluate_all(problem, p, st)
+            return p, values, J, st, codes, it + 1
 
-        x_new, states_new, r, iterations = jax.lax.while_loop(
-            not_done, correct, (predicted, states0, r0, jnp.asarray(0, jnp.int32)))
-        values, states_new, codes = _evaluate_all(problem, x_new, states_new)
+        x_new, values, _, states_new, codes, iterations = jax.lax.while_loop(
+            not_done, correct,
+            (predicted, *_linearized(problem, predicted, states), jnp.asarray(0, jnp.int32)))
         r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
         residual = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
         converged = residual <= cs.tolerance
@@ -319,7 +344,12 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         accepted = status == int(Status.ok)
         # a step past an extremum of the move objective is kept (it is a valid point of the
         # set) but halves the step, so the search settles instead of oscillating
-        improved = _move_objective(problem, ctx, x_new, states_new) > objective
+        if problem.move_kind == "distance":
+            new_objective = _move_objective(problem, ctx, x_new, states_new)
+        else:
+            q_new = _move_quantity(problem, ctx, x_new, values)
+            new_objective = -0.5 * (q_new - problem.move_target) ** 2
+        improved = new_objective > objective
         factor = jnp.where(iterations <= 3, cs.grow, jnp.where(iterations <= 6, 1.0, 1 / cs.grow))
         grown = jnp.where(improved, jnp.minimum(state.step_size * factor, cs.max_step),
                           0.5 * state.step_size)
@@ -439,7 +469,7 @@ def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian."""
     curve = problem.curve(jnp.asarray(problem.start))
     states = tuple(ev.init(curve) for ev in problem.evaluators)
-    values, states, codes = jax.jit(lambda x, s: _evaluate_all(problem, x, s))(
+    values, J, states, codes = jax.jit(lambda x, s: _linearized(problem, x, s))(
         jnp.asarray(problem.start), states)
     values = np.asarray(values)
     targets = values[:problem.n_kept]
@@ -447,14 +477,34 @@ def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     weights = step_weights(problem.family, spec.smoothness)
     ctx = Context(jnp.asarray(problem.start), jnp.asarray(targets), jnp.asarray(scales),
                   jnp.asarray(weights))
-    J = jax.jit(jax.jacfwd(lambda x: _residual(problem, ctx, x, states)[0]))(ctx.start)
-    sv = np.linalg.svd(np.asarray(J) * weights, compute_uv=False)
+    J = np.asarray(J)[:problem.n_kept] / scales[:, None]
+    sv = np.linalg.svd(J * weights, compute_uv=False)
     tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
     rank = int(np.sum(sv > tol))
     init, update = MODES[spec.mode](problem, spec)
     key = named_keys(spec.seed, ("search",))["search"]
-    state = init(ctx, key, states)
-    return Prepared(problem, ctx, state, jax.jit(update), values, np.asarray(codes), rank, sv)
+    state = _strongly_typed(init(ctx, key, states))
+    return Prepared(problem, ctx, state, jax.jit(_same_types(update)), values,
+                    np.asarray(codes), rank, sv)
+
+
+def _strongly_typed(tree):
+    """Leaves as arrays of fixed dtype (no weak types), so jit sees one signature."""
+    return jax.tree_util.tree_map(
+        lambda v: jax.lax.convert_element_type(jnp.asarray(v), jnp.asarray(v).dtype), tree)
+
+
+def _same_types(update):
+    """Wrap ``update`` so the returned state has exactly the input state's dtypes: otherwise
+    weak types promoted inside optimizers (L-BFGS) change the signature and retrace every step."""
+
+    def wrapped(ctx, state):
+        new_state, info = update(ctx, state)
+        new_state = jax.tree_util.tree_map(
+            lambda new, old: jax.lax.convert_element_type(new, old.dtype), new_state, state)
+        return new_state, info
+
+    return wrapped
 
 
 # --------------------------------------------------------------------------- state ⇄ vector
