@@ -24,8 +24,8 @@ import numpy as np
 from ..curve import Curve, sample
 from ..status import Status
 from .kernels import BOUNDARIES
-from .solver import (Spectrum, area_perimeter, default_resolution, nodes_from_arrays, solve,
-                     wavenumber_for_count)
+from .solver import (Spectrum, area_perimeter, default_resolution, nodes_from_arrays,
+                     resolution_check, solve, wavenumber_for_count)
 
 MAX_REFINEMENTS = 4
 
@@ -76,6 +76,15 @@ def eigenvalues(curve: Curve, count: int | None = None, boundary: str = "dirichl
     # The a posteriori checks drive the resolution: non-real roots near the axis or a change
     # on 5/4 refinement above ``accuracy`` mean the boundary is under-resolved.
     resolution = choose_resolution(curve, count, boundary, k_max)
+    coarse = nodes_of(curve, 256)
+    area, perimeter = area_perimeter(coarse)
+    k_top = k_max if k_max is not None else wavenumber_for_count(
+        count + 3 * np.sqrt(count) + 5, area, perimeter, boundary)
+    for _ in range(MAX_REFINEMENTS):  # probe one disc at the top before the full solve
+        change = resolution_check(nodes_of(curve, resolution), boundary, k_top)
+        if 2.0 * change <= accuracy:
+            break
+        resolution = 2 * int(np.ceil(0.75 * resolution))
     for _ in range(MAX_REFINEMENTS):
         spec = solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
         resolved = "resolution" not in spec.message

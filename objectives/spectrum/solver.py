@@ -140,11 +140,11 @@ def default_resolution(nodes: Nodes, k_max: float) -> int:
 
 def _next_chunk(a: float, k_hi: float, radius: float, chunk: float):
     """The chunk [a, b] after a (geometric near k = 0, then of length ``chunk``), tiled by
-    discs of radius ρ ≤ min(radius, a/3) so that k = 0 (a branch point) stays far away."""
+    discs of radius ρ ≤ min(radius, a/4) so that k = 0 (a branch point) stays far away."""
     b = min(a + min(a, chunk), k_hi)
     if k_hi - b < 0.25 * min(a, chunk):
         b = k_hi
-    n = max(1, int(np.ceil((b - a) / (2.0 * min(radius, a / 3.0)))))
+    n = max(1, int(np.ceil((b - a) / (2.0 * min(radius, a / 4.0)))))
     rho = (b - a) / (2 * n)
     return b, [a + rho * (2 * j + 1) for j in range(n)], rho
 
@@ -290,6 +290,40 @@ def _group(values: np.ndarray, tol: float) -> list[np.ndarray]:
     return groups
 
 
+def resolution_check(nodes: Nodes, boundary: str, k_top: float,
+                     radius: float = WINDOW_RADIUS) -> float:
+    """Cheap probe before a full solve: relative change of the highest eigenvalue in one disc
+    just below ``k_top`` when the nodes are refined by 5/4 (inf when roots appear just off
+    the real axis, the sign of an under-resolved boundary)."""
+    with single_blas_thread():
+        size = nodes.size
+        geo = geometry(nodes, boundary)
+        rho = min(radius, k_top / 6.0)
+        centre = k_top - rho
+        proxy = build_proxy(geo, centre - 4 * rho, centre + 4 * rho, tolerance=1e-13)
+        area, perimeter = area_perimeter(nodes)
+        expected = weyl_mean((centre + 2 * rho) ** 2, area, perimeter, boundary) - weyl_mean(
+            (centre - 2 * rho) ** 2, area, perimeter, boundary)
+        probes = min(int(np.ceil(1.5 * max(expected, 0.0))) + 8, size - 2)
+        found = _beyn(proxy, centre, rho, probes, size, np.random.default_rng(_SEED),
+                      QUADRATURE_NODES)
+        if found is None:
+            return float("inf")
+        ks, vecs = found
+        dist = np.abs(ks.real - centre) / rho
+        real = (np.abs(ks.imag) < 1e-6 * np.maximum(1.0, np.abs(ks))) & (dist <= 1.0)
+        if np.any(~real & (np.abs(ks.imag) < 0.2 * rho) & (dist <= 1.0)):
+            return float("inf")
+        if not np.any(real):
+            return 0.0
+        j = int(np.flatnonzero(real)[np.argmax(ks.real[real])])
+        finer = refined_nodes(nodes, 2 * int(np.ceil(0.625 * size)))
+        k_fine, _, _ = _polish(geometry(finer, boundary), ks[j:j + 1].real,
+                               _resample(vecs[:, [j]], finer.size))
+        k_here, _, _ = _polish(geo, ks[j:j + 1].real, vecs[:, [j]])
+        return float(abs(k_fine[0] - k_here[0]) / k_top)
+
+
 def solve(nodes: Nodes, boundary: str, count: int | None = None, k_max: float | None = None,
           k_min: float | None = None, radius: float = WINDOW_RADIUS,
           quadrature_nodes: int = QUADRATURE_NODES, cluster_tol: float = CLUSTER_TOL) -> Spectrum:
@@ -355,7 +389,9 @@ def _solve(nodes, boundary, count, k_max, k_min, radius, quadrature_nodes, clust
     a, extensions = k_min, 0
     while True:
         b, centres, rho = _next_chunk(a, k_hi, radius, CHUNK_LENGTH)
-        proxy = build_proxy(geo, a, b, tolerance=1e-13)
+        # The proxy interval reaches 2ρ beyond the discs, keeping them well inside its
+        # Bernstein ellipse (rounding in the Chebyshev sum grows like ρ_z^M off the axis).
+        proxy = build_proxy(geo, a - 2 * rho, b + 2 * rho, tolerance=1e-13)
         if proxy.tail > 1e-11:
             status = Status.solver_failed
             message = f"Chebyshev proxy unresolved on [{a:.3g}, {b:.3g}]"
