@@ -11,8 +11,8 @@ from __future__ import annotations
 import numpy as np
 
 from objectives.curve import Curve
-from objectives.spectrum import (BOUNDARIES, Spectrum, choose_resolution, eigenvalues,
-                                 make_eigenvalue_function)
+from objectives.spectrum import (BOUNDARIES, Spectrum, eigenvalues, make_eigenvalue_function,
+                                 probed_resolution)
 
 from .errors import ConfigError
 from .invariants import Evaluator, InvariantFamily, register
@@ -63,8 +63,8 @@ def _build(boundary: str):
 
         def init(curve: Curve):
             if not chosen["resolution"]:
-                # one notch above the initial guess, so small deformations stay resolved
-                chosen["resolution"] = 2 * int(np.ceil(0.6 * choose_resolution(
+                # a margin above the probed count, so the deformed shapes stay resolved
+                chosen["resolution"] = 2 * int(np.ceil(0.6 * probed_resolution(
                     curve, count, boundary)))
             return None
 

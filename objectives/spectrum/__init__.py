@@ -5,9 +5,10 @@ Boundary integral equations with Kress quadrature (:mod:`.kernels`), a Chebyshev
 error estimates (:mod:`.solver`), and the JAX wrapper with Hadamard's formula (:mod:`.api`).
 """
 
-from .api import choose_resolution, eigenvalues, make_eigenvalue_function, nodes_of
+from .api import (choose_resolution, eigenvalues, make_eigenvalue_function, nodes_of,
+                  probed_resolution)
 from .kernels import BOUNDARIES
 from .solver import Spectrum, solve, weyl_mean
 
 __all__ = ["BOUNDARIES", "Spectrum", "choose_resolution", "eigenvalues",
-           "make_eigenvalue_function", "nodes_of", "solve", "weyl_mean"]
+           "make_eigenvalue_function", "nodes_of", "probed_resolution", "solve", "weyl_mean"]

@@ -29,7 +29,8 @@ from .solver import (Spectrum, area_perimeter, default_resolution, nodes_from_ar
 
 MAX_REFINEMENTS = 4
 
-__all__ = ["eigenvalues", "make_eigenvalue_function", "choose_resolution", "nodes_of"]
+__all__ = ["eigenvalues", "make_eigenvalue_function", "choose_resolution", "probed_resolution",
+           "nodes_of"]
 
 
 _sample_jit = jax.jit(sample, static_argnums=(1, 2))
@@ -61,30 +62,37 @@ def _check(count, boundary, resolution):
         raise ValueError(f"resolution: expected an even integer ≥ 16, got {resolution!r}")
 
 
+def probed_resolution(curve: Curve, count: int | None = None, boundary: str = "dirichlet",
+                      k_max: float | None = None, accuracy: float = 1e-10) -> int:
+    """:func:`choose_resolution`, raised by 3/2 until one disc of eigenvalues just above the
+    requested range changes by less than ``accuracy`` (relative, in λ) on 5/4 refinement and
+    shows no roots off the real axis (:func:`objectives.spectrum.solver.resolution_check`)."""
+    _check(count, boundary, None)
+    resolution = choose_resolution(curve, count, boundary, k_max)
+    area, perimeter = area_perimeter(nodes_of(curve, 256))
+    k_top = k_max if k_max is not None else wavenumber_for_count(
+        count + 3 * np.sqrt(count) + 5, area, perimeter, boundary)
+    for _ in range(MAX_REFINEMENTS):
+        change = resolution_check(nodes_of(curve, resolution), boundary, k_top)
+        if 2.0 * change <= accuracy:
+            break
+        resolution = 2 * int(np.ceil(0.75 * resolution))
+    return resolution
+
+
 def eigenvalues(curve: Curve, count: int | None = None, boundary: str = "dirichlet",
                 resolution: int | None = None, k_max: float | None = None,
                 accuracy: float = 1e-10) -> Spectrum:
     """The first ``count`` eigenvalues of −Δ on the domain bounded by ``curve`` (or all
     with λ ≤ k_max²), ascending with multiplicity, with error estimates and boundary data.
 
-    Without ``resolution``, the node count starts from :func:`choose_resolution` and grows
-    by 3/2 (at most ``MAX_REFINEMENTS`` solves) until the relative change of the top
-    eigenvalue on refinement is below ``accuracy``."""
+    Without ``resolution`` the node count comes from :func:`probed_resolution`; if the full
+    solve still reports under-resolution or a refinement change above ``accuracy`` it is
+    raised by 3/2 and the solve repeated (at most ``MAX_REFINEMENTS`` times)."""
     _check(count, boundary, resolution)
     if resolution is not None:
         return solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
-    # The a posteriori checks drive the resolution: non-real roots near the axis or a change
-    # on 5/4 refinement above ``accuracy`` mean the boundary is under-resolved.
-    resolution = choose_resolution(curve, count, boundary, k_max)
-    coarse = nodes_of(curve, 256)
-    area, perimeter = area_perimeter(coarse)
-    k_top = k_max if k_max is not None else wavenumber_for_count(
-        count + 3 * np.sqrt(count) + 5, area, perimeter, boundary)
-    for _ in range(MAX_REFINEMENTS):  # probe one disc at the top before the full solve
-        change = resolution_check(nodes_of(curve, resolution), boundary, k_top)
-        if 2.0 * change <= accuracy:
-            break
-        resolution = 2 * int(np.ceil(0.75 * resolution))
+    resolution = probed_resolution(curve, count, boundary, k_max, accuracy)
     for _ in range(MAX_REFINEMENTS):
         spec = solve(nodes_of(curve, resolution), boundary, count=count, k_max=k_max)
         resolved = "resolution" not in spec.message
