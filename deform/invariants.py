@@ -161,3 +161,4 @@ register(InvariantFamily(
 
 from . import eigen as _eigen  # noqa: E402,F401  (registers eigenvalues_dirichlet/_neumann)
 from . import orbit_invariants as _orbits  # noqa: E402,F401  (orbit_lengths, orbit_traces, …)
+from . import birkhoff_report as _birkhoff  # noqa: E402,F401  (birkhoff)

@@ -16,7 +16,7 @@ import numpy as np
 
 from objectives import geometry
 
-from . import orbit_report
+from . import birkhoff_report, orbit_report
 from .eigen import eigenvalue_section
 from .shape import Shape
 
@@ -92,6 +92,7 @@ SECTIONS += [Section("bouncing balls", orbit_report.bouncing_balls_section, _wit
              Section("periodic orbits", orbit_report.orbits_section, _with_orbits),
              Section("wave trace", orbit_report.wave_section, _with_orbits),
              Section("class hypotheses", orbit_report.hypotheses_section, _with_orbits)]
+SECTIONS += [Section("birkhoff", birkhoff_report.birkhoff_section, _with_orbits)]
 
 
 def measure(shape: Shape, options: MeasureOptions = MeasureOptions()):

@@ -210,18 +210,24 @@ def _arclength(curve, t_from, t_to):
 
 
 def _iterates(curve, t_orbit, offsets, count):
-    """(σ, p) of P^k(start), k = 1..count, P = T², for starts (t₁ + δ, p = 0)."""
-    t1, t2 = t_orbit
+    """(σ, p − p₁) of P^k(start), k = 1..count, P = Tⁿ for the n-periodic orbit t_orbit,
+    from starts (t₁ + δ, p₁); σ is the arclength from γ(t₁)."""
+    t_orbit = jnp.asarray(t_orbit)
+    n = t_orbit.shape[0]
+    chord = curve(t_orbit[1]) - curve(t_orbit[0])
+    p_orbit = jnp.dot(chord / jnp.linalg.norm(chord), _unit_tangent(curve, t_orbit[0]))
 
     def one(offset):
         def step(state, _):
             t, p = state
-            u, q = _bounce(curve, t, p, t2 + (t - t1))
-            t, p = _bounce(curve, u, q, t1 + (u - t2))
+            for i in range(n):  # bounce i → i+1 (cyclic), Newton guess shifted like t
+                t, p = _bounce(curve, t, p, t_orbit[(i + 1) % n] + (t - t_orbit[i]))
+            t = t_orbit[0] + jnp.mod(t - t_orbit[0] + np.pi, 2 * np.pi) - np.pi
             return (t, p), (t, p)
 
-        _, (ts, ps) = jax.lax.scan(step, (t1 + offset, 0.0), None, length=count)
-        return jax.vmap(lambda t: _arclength(curve, t1, t))(ts), ps
+        start = (t_orbit[0] + offset, p_orbit)
+        _, (ts, ps) = jax.lax.scan(step, start, None, length=count)
+        return jax.vmap(lambda t: _arclength(curve, t_orbit[0], t))(ts), ps - p_orbit
 
     return jax.jit(jax.vmap(one))(jnp.asarray(offsets))
 
@@ -242,19 +248,23 @@ def _rotation_and_action(sigma, p):
     return rotation, area / (2 * np.pi)
 
 
+def _measured_rotation(curve, result, offsets, count):
+    sigma, p = (np.asarray(x) for x in _iterates(curve, result.bounce_params, offsets, count))
+    measured = np.array([_rotation_and_action(s, q) for s, q in zip(sigma, p)])
+    omega, action = measured[:, 0], measured[:, 1]
+    if np.mean(omega) > np.pi:  # measured clockwise in (σ, p): use the sense of DP's rotation
+        omega = 2 * np.pi - omega
+    return omega, action
+
+
 def test_rotation_of_iterated_billiard_map_matches_normal_form():
     """Iterate the actual billiard map near the orbit, measure ω(I) on invariant curves, and
     compare with α + τ₁I + τ₂I² + τ₃I³: the residual must decay like I⁴ (fitted rate), and
     a fit of the measured ω(I) must reproduce τ₁ and, loosely, τ₂."""
     curve = from_family(GENERIC).curve()
     result = birkhoff_invariants(curve, MINOR_AXIS, order=ORDER)
-    offsets = np.geomspace(0.015, 0.05, 6)
-    sigma, p = (np.asarray(x) for x in _iterates(curve, result.bounce_params, offsets, 2500))
-    measured = np.array([_rotation_and_action(s, q) for s, q in zip(sigma, p)])
-    omega, action = measured[:, 0], measured[:, 1]
+    omega, action = _measured_rotation(curve, result, np.geomspace(0.015, 0.05, 6), 2500)
     alpha, tau = float(result.angle), np.asarray(result.tau)
-    if np.mean(omega) > np.pi:  # measured clockwise in (σ, p): use the sense of DP's rotation
-        omega = 2 * np.pi - omega
     predicted = alpha + sum(tau[k] * action ** (k + 1) for k in range(ORDER))
     residual = np.abs(omega - predicted)
     rate = np.polyfit(np.log(action), np.log(residual), 1)[0]
@@ -263,6 +273,21 @@ def test_rotation_of_iterated_billiard_map_matches_normal_form():
     fit = np.polyfit(action, omega - alpha, 4)[::-1]  # ω − α = c₀ + c₁I + … (c₀ ≈ 0)
     assert abs(fit[1] - tau[0]) < 1e-4 * abs(tau[0]), (fit, tau)
     assert abs(fit[2] - tau[1]) < 0.05 * abs(tau[1]), (fit, tau)
+
+
+def test_three_periodic_orbit_against_iterated_map():
+    """The same dynamical measurement for the elliptic 1/3 min-max orbit of a near-circle
+    (P = T³, odd terms at every bounce): ω(I) − (α + τ₁I + τ₂I² + τ₃I³) decays like I⁴."""
+    curve = from_family(Polar.build(1.0, cos=[0.0, 0.03, 0.01])).curve()
+    result = birkhoff_invariants(curve, jnp.array([np.pi, 5.33, 7.24]), order=ORDER)
+    assert int(result.status) == Status.ok
+    omega, action = _measured_rotation(curve, result, np.geomspace(0.035, 0.09, 5), 1500)
+    alpha, tau = float(result.angle), np.asarray(result.tau)
+    predicted = alpha + sum(tau[k] * action ** (k + 1) for k in range(ORDER))
+    residual = np.abs(omega - predicted)
+    rate = np.polyfit(np.log(action), np.log(residual), 1)[0]
+    assert 3.5 < rate < 4.6, (rate, residual, action)
+    assert np.all(residual < 1e-3 * np.abs(omega - alpha)), residual
 
 
 # ----------------------------------------------------------------------------- derivatives
@@ -308,3 +333,22 @@ def test_resonances_and_instability_are_reported():
         birkhoff_invariants(Curve(ellipse, jnp.array([1.0, 0.6])), MINOR_AXIS, order=0)
     with pytest.raises(ValueError, match="bounce_params"):
         birkhoff_invariants(Curve(ellipse, jnp.array([1.0, 0.6])), jnp.array([0.1]))
+
+
+# ----------------------------------------------------------------------------- wiring
+def test_invariant_family_and_options():
+    from deform.errors import ConfigError
+    from deform.invariants import build
+
+    with pytest.raises(ConfigError, match="invariants.birkhoff.order"):
+        build("birkhoff", {"order": 9})
+    with pytest.raises(ConfigError, match="invariants.birkhoff.orbits"):
+        build("birkhoff", {"orbits": ["two,max"]})
+    evaluator = build("birkhoff", {"order": ORDER})
+    assert evaluator.labels == ("τ1[1/2,minimax]", "τ2[1/2,minimax]", "τ3[1/2,minimax]")
+    curve = Curve(ellipse, jnp.array([1.0, 0.6]))
+    state = evaluator.init(curve)
+    values, _, status = evaluator.evaluate(curve, state)
+    assert int(status) == Status.ok
+    # τ₁ = 2b/a² and the caustic-family τ₂, τ₃ (Chang & Friedberg 1988, as above)
+    np.testing.assert_allclose(np.asarray(values), _ellipse_reference(1.0, 0.6), rtol=1e-8)
