@@ -161,16 +161,6 @@ def swap_conjugate(f: Array) -> Array:
     return jnp.conj(f[..., _swap_permutation(degree(f))])
 
 
-def partial(f: Array, which: int) -> Array:
-    """∂f/∂x (``which`` = 0) or ∂f/∂y, returned at the same degree (top degree is zero)."""
-    n = degree(f)
-    i, j = exponents(n)
-    source = np.asarray([index(n, a + 1, b) if which == 0 else index(n, a, b + 1)
-                         if a + b + 1 <= n else 0 for a, b in zip(i, j)])
-    factor = np.where(i + j + 1 <= n, (i + 1) if which == 0 else (j + 1), 0).astype(float)
-    return f[..., source] * factor
-
-
 def _binomial_series(exponent: float, count: int) -> np.ndarray:
     """Coefficients C(e, k), k = 0..count, of (1 + v)^e."""
     out = np.ones(count + 1)

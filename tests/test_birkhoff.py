@@ -81,21 +81,23 @@ def _ellipse_reference(a: float, b: float, order: int = 3) -> list[float]:
 
     def omega(m):
         lam = a**2 - m * (a**2 - b**2)
-        return 2 * mpmath.pi * mpmath.ellipf(mpmath.asin(b / mpmath.sqrt(lam)), m) / mpmath.ellipk(m)
+        amplitude = mpmath.asin(b / mpmath.sqrt(lam))
+        return 2 * mpmath.pi * mpmath.ellipf(amplitude, m) / mpmath.ellipk(m)
 
     def action(m):
-        return 2 / mpmath.pi * mpmath.sqrt(a**2 - b**2) * (mpmath.ellipe(m) - (1 - m) * mpmath.ellipk(m))
+        scale = 2 / mpmath.pi * mpmath.sqrt(a**2 - b**2)
+        return scale * (mpmath.ellipe(m) - (1 - m) * mpmath.ellipk(m))
 
     m_check = mpmath.mpf("0.3")
     lam = a**2 - m_check * (a**2 - b**2)
     phi0 = mpmath.asin(mpmath.sqrt((lam - b**2) / (a**2 - b**2)))
-    quad = mpmath.quad(lambda p: mpmath.sqrt(a**2 * mpmath.sin(p)**2 + b**2 * mpmath.cos(p)**2 - lam),
-                       [phi0, mpmath.pi / 2]) * 2 / mpmath.pi
+    excess = lambda p: a**2 * mpmath.sin(p)**2 + b**2 * mpmath.cos(p)**2 - lam  # noqa: E731
+    quad = mpmath.quad(lambda p: mpmath.sqrt(excess(p)), [phi0, mpmath.pi / 2]) * 2 / mpmath.pi
     assert abs(quad - action(m_check)) < 1e-25
 
     w = mpmath.taylor(omega, 0, order)
     s = mpmath.taylor(action, 0, order + 1)
-    # revert I(m) = s1 m + s2 m² + … to m(I), then substitute into ω(m), by undetermined coefficients
+    # revert I(m) = s1 m + s2 m² + … to m(I), substitute into ω(m) (undetermined coefficients)
     m_of_i = [mpmath.mpf(0), 1 / s[1]] + [mpmath.mpf(0)] * (order - 1)
     for k in range(2, order + 1):
         composed = _series_power_sum(s, m_of_i, order)
