@@ -22,6 +22,7 @@ Jacobian (``ScanResult.smooth`` is False).
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, field
 from typing import Any, Sequence
 
@@ -87,8 +88,12 @@ def build_evaluators(specs: Sequence[tuple[str, dict]], where: str = "scan.famil
     return [NamedEvaluator(name, build(name, options, where)) for name, options in specs]
 
 
-def _stacked_values(shape: Shape, evaluators: Sequence[NamedEvaluator], states):
-    def values_of(params):
+@functools.lru_cache(maxsize=64)
+def _jacobian_fn(evaluators: tuple[NamedEvaluator, ...]):
+    """Jitted (shape, states) ↦ (∂values/∂θ, (values, per-family status)); cached per evaluator
+    tuple so path scans and repeated scans compile once per shape family."""
+
+    def values_of(params, shape, states):
         curve = shape.with_params(params).curve()
         vals, codes = [], []
         for named, state in zip(evaluators, states):
@@ -98,26 +103,24 @@ def _stacked_values(shape: Shape, evaluators: Sequence[NamedEvaluator], states):
         values = jnp.concatenate(vals)
         return values, (values, jnp.stack(codes))
 
-    return values_of
+    return jax.jit(lambda shape, states: jax.jacfwd(values_of, has_aux=True)(
+        shape.params, shape, states))
 
 
 def evaluate_jacobian(shape: Shape, evaluators: Sequence[NamedEvaluator], states=None):
-    """(values, ∂values/∂θ, per-family status codes) by forward-mode autodiff.
+    """(values, ∂values/∂θ, per-family status codes, states) by forward-mode autodiff.
 
     ``states`` are the evaluators' warm-start states (cold ``init`` at ``shape`` if None).
     """
     if states is None:
         curve = shape.curve()
         states = [named.evaluator.init(curve) for named in evaluators]
-    fn = _stacked_values(shape, evaluators, states)
-    jac, (values, codes) = jax.jit(jax.jacfwd(fn, has_aux=True))(shape.params)
+    jac, (values, codes) = _jacobian_fn(tuple(evaluators))(shape, list(states))
     return np.asarray(values), np.asarray(jac), np.asarray(codes), states
 
 
-def normal_velocity_matrix(shape: Shape, resolution: int = DEFAULT_RESOLUTION):
-    """V[j, i] = ⟨∂γ/∂θ_i(t_j), N(t_j)⟩ at trapezoid nodes, the weights |γ'(t_j)|·2π/n, and
-    R[j] = normal velocities of the rigid motions (x-, y-translation, rotation about 0)."""
-
+@functools.partial(jax.jit, static_argnums=1)
+def _normal_velocity_samples(shape: Shape, resolution: int):
     def point(params, t):
         return shape.with_params(params).curve()(t)
 
@@ -129,7 +132,13 @@ def normal_velocity_matrix(shape: Shape, resolution: int = DEFAULT_RESOLUTION):
         rigid = jnp.stack([normal[0], normal[1], -p[1] * normal[0] + p[0] * normal[1]])
         return normal @ d_param, speed, rigid
 
-    v, speed, rigid = jax.jit(jax.vmap(row))(nodes(resolution))
+    return jax.vmap(row)(nodes(resolution))
+
+
+def normal_velocity_matrix(shape: Shape, resolution: int = DEFAULT_RESOLUTION):
+    """V[j, i] = ⟨∂γ/∂θ_i(t_j), N(t_j)⟩ at trapezoid nodes, the weights |γ'(t_j)|·2π/n, and
+    R[j] = normal velocities of the rigid motions (x-, y-translation, rotation about 0)."""
+    v, speed, rigid = _normal_velocity_samples(shape, resolution)
     return np.asarray(v), np.asarray(speed) * (2.0 * np.pi / resolution), np.asarray(rigid)
 
 
