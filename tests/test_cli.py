@@ -110,12 +110,12 @@ def test_table_is_large_enough():
 def test_where_a_shape_fails_is_named(tmp_path, capsys):
     path = tmp_path / "dent.toml"
     path.write_text(f"[shape]\n{POLAR_OK}cos = [0.0, 1.5]\n", encoding="utf-8")
-    code, _, err = run_main(["measure", str(path)], capsys)
+    code, _, err = run_main(["measure", str(path), "--max-period", "1"], capsys)
     assert_one_line_error(code, err, "is not positive at θ = ")
     # r(θ) = 1 + 1.5 cos 2θ is most negative (−0.5) at θ = π/2
     assert "r(θ) = -0.5 " in err and "θ = 1.5708" in err
     path.write_text("[shape]\nfamily = \"curve\"\nterms = [[1, 1.0, 0.0], [-2, 0.7, 0.0]]\n")
-    code, _, err = run_main(["measure", str(path)], capsys)
+    code, _, err = run_main(["measure", str(path), "--max-period", "1"], capsys)
     assert_one_line_error(code, err, "(x, y = ")
 
 
@@ -165,7 +165,8 @@ def test_help_lists_every_command(capsys):
 def test_measure_json_has_area_and_perimeter(tmp_path, capsys):
     path = tmp_path / "ellipse.toml"
     path.write_text("[shape]\nfamily = \"ellipse\"\na = 1.0\nb = 0.6\n", encoding="utf-8")
-    code, out, err = run_main(["measure", str(path), "--json", "--resolution", "128"], capsys)
+    code, out, err = run_main(["measure", str(path), "--json", "--resolution", "128",
+                                "--max-period", "1"], capsys)
     assert code == 0, err
     report = json.loads(out)
     # area πab; perimeter 4a E(1 − b²/a²) (Abramowitz & Stegun 17.3, scipy.special.ellipe)
@@ -177,7 +178,8 @@ def test_measure_json_has_area_and_perimeter(tmp_path, capsys):
 def test_measure_table_and_check(capsys):
     code, out, _ = run_main(["check", str(ROOT / "configs" / "egg.toml")], capsys)
     assert code == 0 and "ok" in out and "polar" in out
-    code, out, _ = run_main(["measure", str(ROOT / "configs" / "ellipse.toml")], capsys)
+    code, out, _ = run_main(["measure", str(ROOT / "configs" / "ellipse.toml"), "--max-period", "1"],
+                            capsys)
     assert code == 0
     area_row = next(line for line in out.splitlines() if line.strip().startswith("area"))
     assert abs(float(area_row.split()[-1]) - np.pi * 0.6) < 1e-9
@@ -195,7 +197,7 @@ def test_measure_subprocess_json(tmp_path):
         family = "disk"
         radius = 2.0
     """), encoding="utf-8")
-    proc = _subprocess("measure", str(cfg), "--json", "--resolution", "64")
+    proc = _subprocess("measure", str(cfg), "--json", "--resolution", "64", "--max-period", "1")
     assert proc.returncode == 0, proc.stderr
     report = json.loads(proc.stdout)
     assert abs(report["area"] - 4 * np.pi) < 1e-12 and abs(report["perimeter"] - 4 * np.pi) < 1e-12
