@@ -77,18 +77,34 @@ def build(name: str, options: dict | None = None, where: str = "keep") -> Evalua
     return family.build(**{**allowed, **options})
 
 
+def _integer_option(family: str, key: str, value, low: int, high: int) -> int:
+    """An integer option in [low, high], else a one-line ConfigError naming it."""
+    if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:
+        raise ConfigError(f"invariants.{family}.{key}: expected an integer between {low} and "
+                          f"{high}, got {value!r}")
+    return value
+
+
+def _quadrature(family: str, resolution) -> int:
+    return _integer_option(family, "resolution", resolution, 16, 8192)
+
+
 register(InvariantFamily(
     "area", "enclosed area |Ω|",
-    lambda resolution: stateless(("area",), lambda c: geometry.area(c, resolution)),
+    lambda resolution: stateless(("area",), lambda c, n=_quadrature("area", resolution):
+                                 geometry.area(c, n)),
     (("resolution", 256),)))
 
 register(InvariantFamily(
     "perimeter", "boundary length |∂Ω|",
-    lambda resolution: stateless(("perimeter",), lambda c: geometry.perimeter(c, resolution)),
+    lambda resolution: stateless(("perimeter",), lambda c, n=_quadrature("perimeter", resolution):
+                                 geometry.perimeter(c, n)),
     (("resolution", 256),)))
 
 
 def _moments(max_power, resolution):
+    _integer_option("curvature_moments", "max_power", max_power, 2, 16)
+    _quadrature("curvature_moments", resolution)
     powers = tuple(range(2, max_power + 1))
     return stateless(tuple(f"∮κ^{n}ds" for n in powers), lambda c: jnp.stack(
         [geometry.curvature_moment(c, n, resolution) for n in powers]))
@@ -101,6 +117,8 @@ register(InvariantFamily(
 
 def _heat(boundary):
     def make(order, resolution):
+        _integer_option(f"heat_{boundary}", "order", order, 0, heat.MAX_ORDER)
+        _quadrature(f"heat_{boundary}", resolution)
         labels = tuple(f"heat_{boundary[0].upper()}_c{k}" for k in range(order + 1))
         return stateless(labels, lambda c: heat.heat_coefficients(c, boundary, order, resolution))
 

@@ -100,3 +100,17 @@ def test_integer_valued_floats_are_numbers_and_booleans_are_not():
     assert np.isclose(fam.base[0], 2.0) and np.isclose(fam.base[2], 0.1)
     with pytest.raises(ConfigError, match="shape.cos\\[0\\]: expected a number, got False"):
         parse_config('[shape]\nfamily = "polar"\nradius = 1\ncos = [false]\n')
+
+
+@pytest.mark.parametrize("name, options, message", [
+    ("heat_dirichlet", {"order": 9}, "invariants.heat_dirichlet.order: expected an integer between 0 and 5"),
+    ("heat_neumann", {"resolution": 4}, "invariants.heat_neumann.resolution: expected an integer"),
+    ("area", {"resolution": 2.5}, "invariants.area.resolution: expected an integer"),
+    ("curvature_moments", {"max_power": 1}, "invariants.curvature_moments.max_power"),
+    ("perimeter", {"nodes": 64}, "invariants.perimeter.nodes: unknown option"),
+])
+def test_invariant_options_out_of_range_are_one_line(name, options, message):
+    from deform import invariants
+
+    with pytest.raises(ConfigError, match=message.replace(".", r"\.")):
+        invariants.build(name, options)
