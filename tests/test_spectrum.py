@@ -347,3 +347,26 @@ def test_wave_trace_peak_matches_bouncing_ball_orbit():
     peak = spectral_trace(spec.wavenumbers, [4 * b], 5.0, 24.0)[0]
     np.testing.assert_allclose(2 * abs(peak), amplitude, rtol=0.01)
     assert abs(np.angle(peak) - np.pi / 2) < 0.05 * np.pi
+
+
+def test_heat_trace_remainder_is_first_omitted_term():
+    """Z(t) = Σ e^{−λ_j t} from the computed ellipse (1, 0.6) eigenvalues (k ≤ 28) minus the
+    small-t series c₀..c₄ of objectives.heat (Kac 1966; Pleijel 1954; McKean & Singer 1967;
+    Stewartson & Waechter 1971; Branson & Gilkey 1990) leaves the first omitted term c₅t^{3/2}
+    (Branson, Gilkey, Kirsten & Vassilevich 1999): within 3% for Neumann, and within the size
+    of the next term for Dirichlet, where c₆t² is relatively larger. At t ≥ 0.04 the truncation
+    e^{−λ_max t} < e^{−31} and the shortest orbit's e^{−L²/4t} (L = 2.4) are negligible."""
+    from objectives import heat
+
+    curve = Curve(ellipse, jnp.array([1.0, 0.6]))
+    t = np.array([0.04, 0.05, 0.06])
+    for boundary, band in (("neumann", (0.97, 1.03)), ("dirichlet", (1.0, 1.6))):
+        spec = eigenvalues(curve, k_max=28.0, boundary=boundary)
+        assert spec.status == Status.ok, spec.message
+        c = np.asarray(heat.heat_coefficients(curve, boundary, 5, 256))
+        z = np.exp(-np.outer(t, spec.values)).sum(axis=1)
+        rest4 = z - sum(c[n] * t ** ((n - 2) / 2) for n in range(5))
+        ratio = rest4 / (c[5] * t**1.5)
+        assert np.all((ratio > band[0]) & (ratio < band[1])), (boundary, ratio)
+        rest5 = rest4 - c[5] * t**1.5
+        assert np.all(np.abs(rest5) < 0.5 * np.abs(rest4)), (boundary, rest5, rest4)
