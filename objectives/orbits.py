@@ -463,18 +463,23 @@ def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> b
     return False
 
 
-def _seed_batch(curve, max_period, grid, candidates):
-    """Seeds (padded t, q, p, branch) from the max-plus search for every rotation number."""
+def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
+    """Seeds (p, q, branch, lifted t) from the max-plus search for every rotation number (or the
+    (p, q, branch) keys in ``only``), on a grid ``refine`` times the default."""
     grids = {}
     seeds = []
     for p, q in rotation_numbers(max_period):
+        if only is not None and not any(key[:2] == (p, q) for key in only):
+            continue
         # At least ~5 grid points per bounce, so long orbits keep resolved seeds.
-        n = max(grid, int(16 * np.ceil(5 * q / 16)))
+        n = refine * max(grid, int(16 * np.ceil(5 * q / 16)))
         if n not in grids:
             grids[n] = boundary_grid(curve, n)
         t_grid, points = grids[n]
         table, back = birkhoff_table(points, p, q)
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
+            if only is not None and (p, q, branch) not in only:
+                continue
             starts = _local_extrema(table, maxima)
             # Only extrema whose discrete value competes with the best can win after refinement.
             margin = 0.02 * (np.max(table) - np.min(table)) + 1e-12
@@ -582,10 +587,27 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
                        iterates, resonance_order, newton_steps, 2 * np.pi / grid)
     solved = [_row(curve, out, k, seeds[k][0], seeds[k][1], seeds[k][2], polygon, iterates)
               for k in range(len(seeds))]
+    picked = {}
     for p, q in rotation_numbers(max_period):
         for branch in (MAX, MINIMAX):
             group = [r for r in solved if r["p"] == p and r["q"] == q and r["branch"] == branch]
-            rows.append(_pick(group, branch))
+            picked[(p, q, branch)] = _pick(group, branch)
+    # A seed that Newton could not bring to an orbit of its type is re-seeded on finer grids.
+    for refine in (2, 4):
+        failed = [key for key, row in picked.items()
+                  if row["status"] not in (Status.ok, Status.degenerate)]
+        if not failed:
+            break
+        seeds = _seed_batch(curve, max_period, grid, candidates, only=failed, refine=refine)
+        out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
+                           [s[2] for s in seeds], slots, chunk, iterates, resonance_order,
+                           newton_steps, 2 * np.pi / (refine * grid))
+        for k, (p, q, branch, _) in enumerate(seeds):
+            solved.append(_row(curve, out, k, p, q, branch, polygon, iterates))
+        for key in failed:
+            group = [r for r in solved if (r["p"], r["q"], r["branch"]) == key]
+            picked[key] = _pick(group, key[2])
+    rows.extend(picked.values())
 
     # Bouncing balls.
     for row in _bouncing_balls(curve, bouncing_grid, slots, chunk, iterates, resonance_order,
