@@ -304,8 +304,15 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         along_move, move_norm = _unit(projector @ (w * move_grad))
         along_prev, prev_norm = _unit(projector @ state.tangent)
         along_random, _ = _unit(projector @ jax.random.normal(sub, x.shape))
-        tangent = jnp.where(move_norm > 1e-12, along_move,
-                            jnp.where(prev_norm > 1e-12, along_prev, along_random))
+        if problem.move_kind == "distance":
+            # follow the path (previous tangent) and lean toward increasing D, so the search
+            # does not zig-zag on a multi-dimensional null space
+            blend, blend_norm = _unit(jnp.where(prev_norm > 1e-12, along_prev, 0.0)
+                                      + jnp.where(move_norm > 1e-12, along_move, 0.0))
+            tangent = jnp.where(blend_norm > 1e-12, blend, along_random)
+        else:
+            tangent = jnp.where(move_norm > 1e-12, along_move,
+                                jnp.where(prev_norm > 1e-12, along_prev, along_random))
         direction = w * tangent
         h = state.step_size
         if problem.move_kind != "distance":

@@ -1,0 +1,145 @@
+"""Search-engine timings: penalty and continuation steps, compile cold vs from the cache.
+
+Plain script (`python tests/bench/bench_search.py [--quick]`). Figures, measured in one run:
+* a penalty-mode step (warm invariants, gradient, optax Adam update), 32-mode polar shape
+  keeping ~50 values (orbit lengths and traces q ≤ 7, heat c₀..c₅, bouncing balls, area,
+  perimeter); issue target ≤ 2 ms;
+* a continuation step (Jacobian, predictor, Gauss–Newton corrector) on the same problem;
+  target ≤ 30 ms; and the extra cost of the distance move objective;
+* 1000 Adam steps on 18 warm orbit lengths of a 16-mode shape (prototype figure: 1.5 s);
+* compile time of the first step in a fresh process with an empty persistent cache (cold) and
+  again in a second fresh process with the same cache (cached); targets 20 s / 2 s.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import tempfile
+import time
+
+BIG = """
+[shape]
+family = "polar"
+radius = 1.0
+cos = [0.0, 0.06, 0.02, 0.01]
+sin = [0.0, 0.0, 0.015]
+modes = {modes}
+[search]
+mode = "{mode}"
+keep = {keep}
+steps = 10
+[search.move]
+{move}
+[invariants.orbit_lengths]
+max_period = {period}
+[invariants.orbit_traces]
+max_period = {period}
+[invariants.heat_dirichlet]
+order = 5
+"""
+COEFFICIENT = 'kind = "coefficient"\ncoefficient = "cos[3]"\ntarget = 0.05'
+DISTANCE = 'kind = "distance"'
+KEEP_BIG = '["area", "perimeter", "heat_dirichlet", "bouncing_balls", "orbit_lengths", ' \
+           '"orbit_traces"]'
+
+
+def _prepared(text):
+    import jax
+
+    from deform.config import parse_config
+    from deform.search import build_problem, prepare
+
+    cfg = parse_config(text)
+    problem = build_problem(cfg.shape, cfg.search, cfg.invariants)
+    t0 = time.perf_counter()
+    prepared = prepare(problem, cfg.search)
+    t_prepare = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    state, info = prepared.update(prepared.ctx, prepared.state)
+    jax.block_until_ready(info)
+    return prepared, state, t_prepare, time.perf_counter() - t0
+
+
+def _per_step(prepared, state, count):
+    import jax
+
+    t0 = time.perf_counter()
+    for _ in range(count):
+        state, info = prepared.update(prepared.ctx, state)
+    jax.block_until_ready(info)
+    return (time.perf_counter() - t0) / count, info
+
+
+def compile_only(text: str) -> None:
+    """Child process: print the seconds spent on prepare + first step."""
+    from deform.runtime import configure_jax
+
+    configure_jax()
+    _, _, t_prepare, t_first = _prepared(text)
+    print(f"{t_prepare:.3f} {t_first:.3f}")
+
+
+def main(quick: bool) -> None:
+    from deform.runtime import configure_jax
+
+    configure_jax()
+    import jax.numpy as jnp
+
+    modes, period = (16, 5) if quick else (32, 7)
+    big = dict(modes=modes, keep=KEEP_BIG, period=period)
+    print(f"isodrum search bench ({'quick' if quick else 'full'}): polar shape, {modes} modes, "
+          f"orbits q <= {period}")
+
+    text = BIG.format(mode="penalty", move=COEFFICIENT, **big)
+    prepared, state, t_prep, t_first = _prepared(text)
+    n, m = prepared.ctx.start.size, len(prepared.problem.labels)
+    per, info = _per_step(prepared, state, 20 if quick else 50)
+    print(f"  problem: {n} free parameters, {m} kept values, rank {prepared.rank}")
+    print(f"  penalty (adam) step:        {per * 1e3:8.2f} ms   (target <= 2 ms; "
+          f"prepare {t_prep:.1f} s, first step incl. compile {t_first:.1f} s)")
+
+    text = BIG.format(mode="continuation", move=COEFFICIENT, **big)
+    prepared, state, t_prep, t_first = _prepared(text)
+    per_c, info = _per_step(prepared, state, 5 if quick else 10)
+    print(f"  continuation step:          {per_c * 1e3:8.2f} ms   (target <= 30 ms; corrector "
+          f"iterations {int(info.iterations)}, first step incl. compile {t_first:.1f} s)")
+
+    text = BIG.format(mode="continuation", move=DISTANCE, **big)
+    prepared, state, t_prep, t_first = _prepared(text)
+    per_d, _ = _per_step(prepared, state, 5 if quick else 10)
+    print(f"  continuation, distance move:{per_d * 1e3:8.2f} ms   (ratio to coefficient move "
+          f"{per_d / per_c:.2f})")
+
+    proto = BIG.format(mode="penalty", move=COEFFICIENT, modes=16, keep='["orbit_lengths"]',
+                       period=7)
+    prepared, state, _, _ = _prepared(proto)
+    count = 1000
+    per_p, _ = _per_step(prepared, state, count)
+    print(f"  prototype comparison: {count} adam steps on {len(prepared.problem.labels)} warm "
+          f"orbit lengths, 16 modes: {per_p * count:.2f} s ({1 / per_p:.0f} steps/s; "
+          "prototype 1.5 s)")
+    del jnp
+
+    small = BIG.format(mode="continuation", move=COEFFICIENT, modes=16,
+                       keep='["area", "perimeter", "heat_dirichlet", "bouncing_balls"]', period=5)
+    with tempfile.TemporaryDirectory() as cache:
+        env = dict(os.environ, DEFORM_CACHE=cache)
+        runs = []
+        for _ in range(2):
+            out = subprocess.run([sys.executable, __file__, "--compile-only", small], env=env,
+                                 capture_output=True, text=True, check=True)
+            runs.append([float(v) for v in out.stdout.split()[-2:]])
+    (p_cold, f_cold), (p_warm, f_warm) = runs
+    print(f"  compile, fresh process, empty cache:  prepare {p_cold:.1f} s + first step "
+          f"{f_cold:.1f} s (target <= 20 s)")
+    print(f"  compile, fresh process, cached:       prepare {p_warm:.1f} s + first step "
+          f"{f_warm:.1f} s (target <= 2 s); speed-up {(p_cold + f_cold) / (p_warm + f_warm):.1f}x")
+
+
+if __name__ == "__main__":
+    if len(sys.argv) > 2 and sys.argv[1] == "--compile-only":
+        compile_only(sys.argv[2])
+    else:
+        main("--quick" in sys.argv)
