@@ -134,7 +134,7 @@ def _chord_map(start: Array, end: Array, degree: int):
     outgoing cosine at the start and incoming cosine at the end.
     """
     d = degree
-    chord = tm.embed(end.T, 1, d) - tm.embed(start.T, 0, d)  # D(σ, σ') = Γ'(σ') − Γ(σ), (2, M)
+    chord = tm.embed(end.T, 1, d) - tm.embed(start.T, 0, d)  # Γ_end(σ') − Γ_start(σ), (2, M)
     derivative = np.arange(1, d + 2)[:, None]
     tangent_start = tm.embed((start[1:] * derivative).T, 0, d)
     tangent_end = tm.embed((end[1:] * derivative).T, 1, d)
@@ -173,11 +173,6 @@ def return_map_from_charts(charts: Array, degree: int):
     identity = (tm.variable(0, degree), tm.variable(1, degree))
     (s, q), _ = jax.lax.scan(chain, identity, (landing, cosine))
     return s, q
-
-
-def return_map(curve: Curve, t: Array, degree: int):
-    """Taylor series (S, Q) of the return map at the orbit through ``t`` (not refined)."""
-    return return_map_from_charts(bounce_charts(curve, t, degree), degree)
 
 
 # ----------------------------------------------------------------------------- normal form

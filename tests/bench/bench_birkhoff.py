@@ -47,7 +47,7 @@ def main(order: int = 3) -> None:
     decay = 0.04 * np.exp(-0.35 * np.arange(1, modes + 1))
     cos = decay * rng.normal(size=modes)
     cos[0] = 0.0
-    cos[1] = -0.15  # short x-axis: the bouncing ball along it is elliptic
+    cos[1] = -0.08  # short x-axis: the bouncing ball along it is elliptic
     family = Polar.build(1.0, cos=list(cos), symmetry=Symmetry("mirror"))
     shape = from_family(family)
     axis = jnp.array([0.0, np.pi])
