@@ -164,9 +164,10 @@ def run_search(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
                            _meta(prepared, spec, limit))
     n = problem.start.size
     with open_writer(output, attrs, tables, initial=initial) as writer:
+        kept_names = ", ".join(problem.names[:problem.n_kept_families])
         progress(f"{spec.mode} search: {family.name} family, {n} free parameters, "
-                 f"{problem.n_kept} kept values ({', '.join(problem.names[:problem.n_kept_families])})"
-                 f", rank {prepared.rank}; moving {problem.move_label}")
+                 f"{problem.n_kept} kept values ({kept_names}), rank {prepared.rank}; "
+                 f"moving {problem.move_label}")
         stop = None
         if not resume:
             writer.append("steps", _row(prepared, sample, state, _start_info(prepared)))

@@ -202,7 +202,7 @@ def parse_search(r) -> SearchSpec:
 
 
 def parse_invariants(r) -> InvariantOptions:
-    """[invariants.<name>] tables: options of registered families, checked against their defaults."""
+    """[invariants.<name>] tables: options of registered families, checked against defaults."""
     registry = _registry()
     entries = []
     for name in list(r.table):

@@ -1,4 +1,4 @@
-"""Examples are tests: every config in configs/ is checked, and every search config runs (shortened)."""
+"""Examples are tests: every config in configs/ checks, and every search config runs shortened."""
 
 from pathlib import Path
 

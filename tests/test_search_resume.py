@@ -1,4 +1,4 @@
-"""Kill a real `deform run` with SIGKILL, then --resume: the trajectory equals an uninterrupted run."""
+"""Kill a real `deform run` with SIGKILL, then --resume: same trajectory as an uninterrupted run."""
 
 import signal
 import subprocess

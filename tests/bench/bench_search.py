@@ -85,8 +85,6 @@ def main(quick: bool) -> None:
     from deform.runtime import configure_jax
 
     configure_jax()
-    import jax.numpy as jnp
-
     modes, period = (16, 5) if quick else (32, 7)
     big = dict(modes=modes, keep=KEEP_BIG, period=period)
     print(f"isodrum search bench ({'quick' if quick else 'full'}): polar shape, {modes} modes, "
@@ -120,7 +118,6 @@ def main(quick: bool) -> None:
     print(f"  prototype comparison: {count} adam steps on {len(prepared.problem.labels)} warm "
           f"orbit lengths, 16 modes: {per_p * count:.2f} s ({1 / per_p:.0f} steps/s; "
           "prototype 1.5 s)")
-    del jnp
 
     small = BIG.format(mode="continuation", move=COEFFICIENT, modes=16,
                        keep='["area", "perimeter", "heat_dirichlet", "bouncing_balls"]', period=5)
