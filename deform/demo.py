@@ -23,6 +23,25 @@ def run_demo(output: str | Path = "runs/demo.h5", steps: int | None = None) -> P
     print(f"demo: {DEMO_CONFIG.name}: an invented egg-shaped drum; keeping its invariants fixed "
           "while moving it as far as it will go\n", flush=True)
     target = execute(str(DEMO_CONFIG), str(output), steps, quiet=False)
-    figures = plot_record(read_record(target))
-    print(f"  figures: {', '.join(str(p) for p in figures)}", flush=True)
+    record = read_record(target)
+    figures = plot_record(record)
+    print(f"  figures: {', '.join(str(p) for p in figures)}")
+    print(f"  found: {finding(record)}", flush=True)
     return target
+
+
+def finding(record) -> str:
+    """One sentence on how the distance from the start evolved along the accepted path."""
+    import numpy as np
+
+    distance = record.table("steps")["distance"]
+    if distance.size < 3:
+        return "too few steps to say how far the shape can move"
+    best = int(np.argmax(distance))
+    tail = distance[-max(2, distance.size // 4):]
+    if best >= distance.size - 2 and np.all(np.diff(tail) > 0):
+        return (f"still moving away at the last step (D = {distance[-1]:.4g}); more steps "
+                "would push it further")
+    return (f"the distance levelled off: max D = {distance[best]:.4g} at step {best}, and the "
+            f"last {tail.size} steps stayed within [{tail.min():.4g}, {tail.max():.4g}]: with "
+            "these values kept, this shape can only move that far along the path found")
