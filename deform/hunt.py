@@ -20,6 +20,7 @@ record (kind ``hunt_start``); the ranking over starts goes into a summary record
 
 from __future__ import annotations
 
+import functools
 import json
 import re
 from dataclasses import dataclass
@@ -63,9 +64,10 @@ def _evaluate_all(curve, evaluators: Sequence[NamedEvaluator], states):
     return jnp.concatenate(values), new_states, jnp.stack(codes)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class PairProblem:
-    """The pieces of one hunt that do not change between starts."""
+    """The pieces of one hunt that do not change between starts (hashed by identity, so the
+    jitted step functions below compile once per problem and are reused by every start)."""
 
     family: Any
     evaluators: tuple[NamedEvaluator, ...]
@@ -166,6 +168,27 @@ def _boundary(shape: Shape) -> np.ndarray:
     return np.asarray(jax.vmap(shape.curve())(t))
 
 
+@functools.partial(jax.jit, static_argnums=(0, 1))
+def _adam_step(problem: PairProblem, learning_rate: float, x, opt_state, sa, sb):
+    """One optax Adam step on the hunt loss (states of the kept families carried along)."""
+    optimizer = optax.adam(learning_rate)
+    (value, (r, d2, (sa, sb, codes))), grad = jax.value_and_grad(
+        problem.loss, has_aux=True)(x, sa, sb)
+    updates, opt_state = optimizer.update(grad, opt_state, x)
+    return optax.apply_updates(x, updates), opt_state, sa, sb, value, r, d2, jnp.max(codes)
+
+
+@functools.partial(jax.jit, static_argnums=0)
+def _linearized(problem: PairProblem, x, sa, sb):
+    """(∂r/∂x, r, D², states, worst status) for a Gauss–Newton step."""
+    def residual(y):
+        out = problem.residual(y, sa, sb)
+        return out[0], out
+
+    jac, (r, d2, (sa, sb, codes)) = jax.jacfwd(residual, has_aux=True)(x)
+    return jac, r, d2, sa, sb, jnp.max(codes)
+
+
 def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | None,
               config_text: str = "", source: str = "<config>") -> StartResult:
     """One seeded start: Adam on the loss, Gauss–Newton polish, guards; optionally recorded."""
@@ -181,24 +204,8 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
     states_a = [e.evaluator.init(a.curve()) for e in problem.evaluators]
     states_b = [e.evaluator.init(b.curve()) for e in problem.evaluators]
     labels = [lbl for e in problem.evaluators for lbl in e.evaluator.labels]
-    optimizer = optax.adam(spec.learning_rate)
-    opt_state = optimizer.init(x)
-
-    @jax.jit
-    def adam_step(x, opt_state, sa, sb):
-        (value, (r, d2, (sa, sb, codes))), grad = jax.value_and_grad(
-            problem.loss, has_aux=True)(x, sa, sb)
-        updates, opt_state = optimizer.update(grad, opt_state, x)
-        return optax.apply_updates(x, updates), opt_state, sa, sb, value, r, d2, jnp.max(codes)
-
-    @jax.jit
-    def linearized(x, sa, sb):
-        def residual(y):
-            out = problem.residual(y, sa, sb)
-            return out[0], out
-
-        jac, (r, d2, (sa, sb, codes)) = jax.jacfwd(residual, has_aux=True)(x)
-        return jac, r, d2, sa, sb, jnp.max(codes)
+    opt_state = optax.adam(spec.learning_rate).init(x)
+    lr = float(spec.learning_rate)
 
     meta = {"index": index, "keep": [e.name for e in problem.evaluators], "labels": labels,
             "floor": problem.floor, "tolerance": spec.tolerance, "family": problem.family.name,
@@ -219,15 +226,15 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
 
         step = 0
         for step in range(1, spec.steps + 1):
-            x, opt_state, states_a, states_b, value, r, d2, code = adam_step(
-                x, opt_state, states_a, states_b)
+            x, opt_state, states_a, states_b, value, r, d2, code = _adam_step(
+                problem, lr, x, opt_state, states_a, states_b)
             worst = max(worst, Status(int(code)))
             if step % 25 == 0 or step == spec.steps:
                 log(step, "adam", x, value, r, d2, code)
             if worst is not Status.ok:
                 break
         for _ in range(spec.polish if worst is Status.ok else 0):
-            jac, r, d2, states_a, states_b, code = linearized(x, states_a, states_b)
+            jac, r, d2, states_a, states_b, code = _linearized(problem, x, states_a, states_b)
             worst = max(worst, Status(int(code)))
             step += 1
             log(step, "polish", x, float(jnp.sum(r * r)), r, d2, code)
@@ -303,6 +310,9 @@ def recheck_pair(family, params_a, params_b, evaluators: Sequence[NamedEvaluator
     return rows, first
 
 
+_WORKER_PROBLEMS: dict[str, PairProblem] = {}
+
+
 def _worker(config_text: str, source: str, index: int, seed: int, output: str | None) -> dict:
     """Process-pool entry: rebuild everything from the config text (runs are pure functions
     of config and seed) and return a JSON-ready summary."""
@@ -311,7 +321,9 @@ def _worker(config_text: str, source: str, index: int, seed: int, output: str | 
 
     configure_jax()
     config = parse_config(config_text, source)
-    problem = _problem(config)
+    if config_text not in _WORKER_PROBLEMS:  # one problem (one compilation) per worker process
+        _WORKER_PROBLEMS[config_text] = _problem(config)
+    problem = _WORKER_PROBLEMS[config_text]
     result = run_start(problem, config.hunt, index, seed, output, config_text, source)
     out = result.summary()
     out.update(params_a=result.params_a.tolist(), params_b=result.params_b.tolist(),
