@@ -15,11 +15,10 @@ Dirichlet/Neumann and κ_s = dκ/ds:
 
 from __future__ import annotations
 
-import jax
 import jax.numpy as jnp
 
-from .curve import DEFAULT_RESOLUTION, Array, Curve, nodes
-from .geometry import area, curvature_jet, speed
+from .curve import DEFAULT_RESOLUTION, Array, Curve, cross, safe_norm, sample
+from .geometry import area
 
 BOUNDARIES = ("dirichlet", "neumann")
 MAX_ORDER = 5
@@ -40,10 +39,8 @@ def heat_coefficients(curve: Curve, boundary: str = "dirichlet", order: int = MA
     if not 0 <= order <= MAX_ORDER:
         raise ValueError(f"order must be between 0 and {MAX_ORDER}, got {order}")
     sign, f3, f4, w4, ws = _TABLE[boundary]
-    t = nodes(resolution)
-    jets = jax.vmap(lambda s: curvature_jet(curve, s, 1))(t)
-    ds = jax.vmap(lambda s: speed(curve, s))(t) * (2.0 * jnp.pi / resolution)
-    kappa, kappa_s = jets[:, 0], jets[:, 1]
+    kappa, kappa_s, speed = _curvature_and_derivative(curve, resolution)
+    ds = speed * (2.0 * jnp.pi / resolution)
     length = jnp.sum(ds)
     integral = lambda f: jnp.sum(f * ds)  # noqa: E731
     coeffs = jnp.stack([
@@ -55,6 +52,21 @@ def heat_coefficients(curve: Curve, boundary: str = "dirichlet", order: int = MA
         integral(w4 * kappa**4 + ws * kappa_s**2) / (2.0**15 * _SQRT_PI),
     ])
     return coeffs[: order + 1]
+
+
+def _curvature_and_derivative(curve: Curve, resolution: int):
+    """κ, κ_s and |γ'| at the trapezoid nodes from one Taylor sample (the first three t-derivatives).
+
+    κ = (γ'×γ'')/|γ'|³ and κ_s = |γ'|⁻¹ dκ/dt = [(γ′×γ‴)|γ'|² − 3(γ'×γ'')(γ'·γ'')]/|γ'|⁶,
+    the quotient rule written out so the gradient does not differentiate nested derivatives.
+    """
+    g = sample(curve, resolution, order=3)
+    d1, d2, d3 = g[1], g[2], g[3]
+    speed = safe_norm(d1)
+    cross12 = cross(d1, d2)
+    kappa = cross12 / speed**3
+    kappa_s = (cross(d1, d3) * speed**2 - 3.0 * cross12 * jnp.sum(d1 * d2, axis=-1)) / speed**6
+    return kappa, kappa_s, speed
 
 
 def heat_trace_series(coefficients: Array, t: Array) -> Array:

@@ -152,3 +152,18 @@ def test_bad_arguments_are_rejected():
         heat.heat_coefficients(curve, "robin")
     with pytest.raises(ValueError, match="order"):
         heat.heat_coefficients(curve, "dirichlet", heat.MAX_ORDER + 1)
+
+
+def test_c5_on_a_generic_shape_matches_the_curvature_jet_route():
+    """c₅ uses κ_s from the quotient rule on (γ′, γ″, γ‴); recompute ∮(wκ⁴ + w_s κ_s²) ds with
+    κ_s by nested differentiation of κ along arclength (geometry.curvature_jet), an independent
+    route; the weights are those of Branson, Gilkey, Kirsten & Vassilevich 1999 (a_{5/2})."""
+    from objectives import geometry
+
+    family = Polar.build(1.0, cos=[0.0, 0.1, 0.03], sin=[0.0, 0.0, 0.02, -0.01], modes=4)
+    curve = from_family(family).curve()
+    for boundary, (w4, ws) in (("dirichlet", (37.0, -8.0)), ("neumann", (269.0, -152.0))):
+        c5 = float(heat.heat_coefficients(curve, boundary)[5])
+        integral = float(geometry.boundary_integral(
+            curve, lambda k, ks: w4 * k**4 + ws * ks**2, order=1))
+        assert abs(c5 - integral / (2**15 * np.sqrt(np.pi))) < 1e-13 * abs(c5) + 1e-15
