@@ -354,3 +354,16 @@ def test_invariant_family_and_options():
     assert int(status) == Status.ok
     # τ₁ = 2b/a² and the caustic-family τ₂, τ₃ (Chang & Friedberg 1988, as above)
     np.testing.assert_allclose(np.asarray(values), _ellipse_reference(1.0, 0.6), rtol=1e-8)
+
+
+def test_measure_section_reports_elliptic_orbits():
+    from deform.birkhoff_report import birkhoff_section
+    from deform.families import Ellipse
+    from deform.measure import MeasureOptions
+
+    data, rows = birkhoff_section(from_family(Ellipse.build(1.0, 0.6)), MeasureOptions(max_period=2))
+    (item,) = data["birkhoff"]  # the minor axis; the major axis is hyperbolic
+    assert (item["p"], item["q"], item["resonance_order"], item["status"]) == (1, 2, 0, "ok")
+    assert abs(item["length"] - 2.4) < 1e-12 and abs(item["angle"] - 4 * np.arcsin(0.6)) < 1e-12
+    np.testing.assert_allclose(item["tau"], _ellipse_reference(1.0, 0.6), rtol=1e-8)
+    assert any("τ = [" in text for _, text in rows)
