@@ -361,7 +361,8 @@ def test_measure_section_reports_elliptic_orbits():
     from deform.families import Ellipse
     from deform.measure import MeasureOptions
 
-    data, rows = birkhoff_section(from_family(Ellipse.build(1.0, 0.6)), MeasureOptions(max_period=2))
+    shape = from_family(Ellipse.build(1.0, 0.6))
+    data, rows = birkhoff_section(shape, MeasureOptions(max_period=2))
     (item,) = data["birkhoff"]  # the minor axis; the major axis is hyperbolic
     assert (item["p"], item["q"], item["resonance_order"], item["status"]) == (1, 2, 0, "ok")
     assert abs(item["length"] - 2.4) < 1e-12 and abs(item["angle"] - 4 * np.arcsin(0.6)) < 1e-12
