@@ -70,7 +70,8 @@ def _ellipse_reference(a: float, b: float, order: int = 3) -> list[float]:
 
     Rotation angle of T² about the minor-axis orbit for the caustic x²/(a²−λ) + y²/(b²−λ) = 1,
     b² < λ < a²: ω = 2π F(arcsin(b/√λ), k)/K(k), k² = (a² − λ)/(a² − b²) (Chang & Friedberg,
-    J. Math. Phys. 29 (1988) 1537; Tabachnikov, "Geometry and Billiards", AMS 2005, ch. 4).
+    J. Math. Phys. 29 (1988) 1537; Tabachnikov, "Geometry and Billiards", AMS 2005; attribution
+    from memory, the formula itself re-derived by separating the flow in elliptic coordinates).
     Action of the invariant curve p² = 1 − λ/D(φ), D = a² sin²φ + b² cos²φ:
     I = (1/π)∫_{D>λ} √(D − λ) dφ = (2/π)√(a² − b²) (E(k) − (1 − k²)K(k)) (elementary:
     substitute cos φ = k sin ψ; checked against the quadrature below). Both are analytic in
@@ -122,9 +123,10 @@ def test_ellipse_minor_axis_matches_caustic_rotation(a, b):
     result = birkhoff_invariants(Curve(ellipse, jnp.array([a, b])), MINOR_AXIS, order=ORDER)
     reference = _ellipse_reference(a, b, ORDER)
     assert int(result.status) == Status.ok
-    # linear angle: ω₀ = 4 arcsin(b/a) (laser-resonator stability, e.g. Siegman, "Lasers", 1986)
+    # linear angle: cos ω₀ = 2g² − 1, g = 1 − 2b²/a², i.e. ω₀ = 4 arcsin(b/a) (laser-resonator
+    # g-factors, A. E. Siegman, "Lasers", 1986, from memory)
     assert abs(float(result.angle) - 4 * np.arcsin(b / a)) < 1e-12
-    # τ₁ = 2b/a² in closed form (REFERENCES-independent re-derivation from the caustic family)
+    # τ₁ = 2b/a²: the first-order term of the caustic expansion above, in closed form
     assert abs(float(result.tau[0]) - 2 * b / a**2) < 1e-10
     np.testing.assert_allclose(np.asarray(result.tau), reference, rtol=1e-8)
 
@@ -160,7 +162,8 @@ def _reparametrized_parameter(t_old: float, shift: float, warp: float) -> float:
 
 def test_coordinate_independence_generic_shape():
     # invariance of τ_k under isometries and reparametrization is part of their definition
-    # (Birkhoff 1927); under a dilation by c, I ↦ cI so τ_k ↦ τ_k / c^k (common practice)
+    # (Birkhoff, "Dynamical Systems", 1927, from memory); under a dilation by c, I ↦ cI so
+    # τ_k ↦ τ_k / c^k (common practice)
     shape = from_family(GENERIC)
     base = birkhoff_invariants(shape.curve(), MINOR_AXIS, order=ORDER)
     assert int(base.status) == Status.ok
@@ -236,8 +239,9 @@ def _iterates(curve, t_orbit, offsets, count):
 
 def _rotation_and_action(sigma, p):
     """Rotation angle by a weighted Birkhoff average of angle increments (weight
-    exp(−1/(x(1−x))): Das, Sander & Yorke, Nonlinearity 30 (2017) 4111); action = area/2π of
-    the invariant curve from a periodic cubic spline of r²(φ) (area = ½∮r² dφ)."""
+    exp(−1/(x(1−x))): Das, Sander & Yorke, Nonlinearity 30 (2017) 4111, from memory);
+    action = area/2π of the invariant curve from a periodic cubic spline of r²(φ)
+    (area = ½∮r² dφ)."""
     angle = np.arctan2(p, sigma)
     steps = np.mod(np.diff(angle), 2 * np.pi)
     x = (np.arange(steps.size) + 0.5) / steps.size
@@ -317,7 +321,7 @@ def test_derivative_matches_central_differences():
 # ----------------------------------------------------------------------------- refusals
 def test_resonances_and_instability_are_reported():
     # resonance orders from ω₀ = 4 arcsin(b/a): b/a = sin(π/6) gives α = 2π/3 (m = 3),
-    # b/a = sin(π/10) gives α = 2π/5 (m = 5): τ_k needs m > 2k + 2 (Birkhoff 1927)
+    # b/a = sin(π/10) gives α = 2π/5 (m = 5): τ_k needs m > 2k + 2 (Birkhoff 1927, from memory)
     third = birkhoff_invariants(Curve(ellipse, jnp.array([1.0, 0.5])), MINOR_AXIS, order=ORDER)
     assert int(third.resonance_order) == 3 and int(third.status) == Status.resonant
     assert np.all(np.isnan(np.asarray(third.tau)))
@@ -326,7 +330,7 @@ def test_resonances_and_instability_are_reported():
     assert int(fifth.resonance_order) == 5 and int(fifth.status) == Status.resonant
     assert abs(float(fifth.tau[0]) - 2 * np.sin(np.pi / 10)) < 1e-8  # τ₁ = 2b/a² still defined
     assert np.all(np.isnan(np.asarray(fifth.tau[1:])))
-    # the major axis is hyperbolic (tr P = 81.0123 for a = 1, b = 0.6, Siegman's g-factors)
+    # the major axis is hyperbolic (tr P = 81.0123 for a = 1, b = 0.6, g-factors as above)
     major = birkhoff_invariants(Curve(ellipse, jnp.array([1.0, 0.6])), jnp.array([0.0, np.pi]),
                                 order=ORDER)
     assert abs(float(major.trace) - (4 * (1 - 2 / 0.36) ** 2 - 2)) < 1e-9
