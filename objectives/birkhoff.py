@@ -10,8 +10,8 @@ area-preserving polar coordinates (I, φ) in which
 
 with I the phase-space area enclosed by an invariant curve divided by 2π, α ∈ (0, π) with
 cos α = tr(DP)/2, and φ measured in the sense in which DP rotates by +α (angles in radians).
-The τ_k are the Birkhoff invariants (G. D. Birkhoff, "Dynamical Systems", 1927, ch. III;
-J. Moser, "Stable and Random Motions in Dynamical Systems", 1973).
+The τ_k are the Birkhoff invariants (G. D. Birkhoff, "Dynamical Systems", 1927; J. Moser,
+"Stable and Random Motions in Dynamical Systems", 1973; both from memory).
 
 Method.
 1. Arclength charts: at every bounce point the boundary as a series Γ_i(σ) in the arclength
