@@ -145,15 +145,15 @@ def _chord_map(start: Array, end: Array, degree: int):
                      inverse_length)  # p' = ∂h/∂σ'
     p_start, p_end = cos_start[0], cos_end[0]
     g = cos_start.at[0].set(0.0)
-    x, q = tm.variable(0, d), tm.variable(1, d)
+    q = tm.variable(1, d)
     slope = g[tm.index(d, 0, 1)]
 
     def fixed_point(_, s):
         # each pass fixes one more degree of σ'(σ, q): the linear part is exact
-        return s + (q - tm.compose(g, x, s)) / slope
+        return s + (q - tm.compose_second(g, s)) / slope
 
     landing = jax.lax.fori_loop(0, d, fixed_point, q / slope)
-    return landing, tm.compose(cos_end.at[0].set(0.0), x, landing), p_start, p_end
+    return landing, tm.compose_second(cos_end.at[0].set(0.0), landing), p_start, p_end
 
 
 def bounce_charts(curve: Curve, t: Array, degree: int) -> Array:

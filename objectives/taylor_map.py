@@ -155,6 +155,26 @@ def compose(f: Array, a: Array, b: Array) -> Array:
     return result
 
 
+@functools.lru_cache(maxsize=None)
+def _shift_rows(degree_: int) -> np.ndarray:
+    """S[i, c] = position of x^{a−i} y^b for monomial c = x^a y^b (padding slot M if a < i)."""
+    size = (degree_ + 1) * (degree_ + 2) // 2
+    table = np.full((degree_ + 1, size), size)
+    for i in range(degree_ + 1):
+        for c, (a, b) in enumerate(monomials(degree_)):
+            if a >= i:
+                table[i, c] = index(degree_, a - i, b)
+    return table
+
+
+def compose_second(f: Array, b: Array) -> Array:
+    """f(x, b(x, y)) for b(0) = 0: like ``compose(f, x, b)`` but multiplying by powers of x
+    is a shift, so no Horner loop is needed."""
+    n = degree(f)
+    inner = _padded(_padded(f)[..., _coefficient_grid(n)] @ powers(b, n))  # Σ_j f_ij b^j
+    return jnp.sum(inner[..., np.arange(n + 1)[:, None], _shift_rows(n)], axis=-2)
+
+
 def swap_conjugate(f: Array) -> Array:
     """The series f̄ with f̄(z, z̄) = conj(f(z, z̄)) when x = z and y = z̄ (so coefficients of
     z^i z̄^j become conj of those of z^j z̄^i)."""

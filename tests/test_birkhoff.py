@@ -56,10 +56,12 @@ def test_series_composition_matches_direct_evaluation():
     i, j = tm.exponents(degree)
     value = lambda c, x, y: np.sum(c * x**i * y**j)  # noqa: E731
     composed = np.asarray(tm.compose(jnp.asarray(f), jnp.asarray(a), jnp.asarray(b)))
+    second = np.asarray(tm.compose_second(jnp.asarray(f), jnp.asarray(b)))
     root = np.asarray(tm.power_of(jnp.asarray(f).at[0].set(3.0), -0.5))
     for x, y in [(1e-2, -2e-2), (-3e-2, 1e-2)]:
         direct = value(f, value(a, x, y), value(b, x, y))
         assert abs(value(composed, x, y) - direct) < 50 * 0.03**6, "seed 7"
+        assert abs(value(second, x, y) - value(f, x, value(b, x, y))) < 50 * 0.03**6, "seed 7"
         g = value(np.concatenate([[3.0], f[1:]]), x, y)
         assert abs(value(root, x, y) - g**-0.5) < 50 * 0.03**6, "seed 7"
 
