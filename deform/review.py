@@ -176,7 +176,7 @@ def plot_record(record: Record, directory: str | Path | None = None) -> list[Pat
 
     if "boundary" in steps:
         closed = lambda b: np.vstack([b, b[:1]])  # noqa: E731
-        fig, ax = plt.subplots(figsize=(5.5, 5.5))
+        fig, (ax, ax2) = plt.subplots(1, 2, figsize=(11, 5.5))
         start, end = closed(steps["boundary"][0]), closed(steps["boundary"][-1])
         ax.plot(start[:, 0], start[:, 1], "k-", lw=1.5, label="start")
         ax.plot(end[:, 0], end[:, 1], "C3-", lw=1.5, label=f"end (step {int(steps['step'][-1])})")
@@ -184,6 +184,18 @@ def plot_record(record: Record, directory: str | Path | None = None) -> list[Pat
         ax.legend(loc="upper right")
         ax.set_title(f"start and end shapes, D = {steps['distance'][-1]:.4g}"
                      if "distance" in steps else "start and end shapes")
+        # the same change magnified so that its largest displacement is 10 % of the size
+        shift = end - start
+        size = np.ptp(start, axis=0).max()
+        biggest = np.max(np.linalg.norm(shift, axis=1))
+        gain = 0.1 * size / biggest if biggest > 0 else 1.0
+        magnified = start + gain * shift
+        ax2.plot(start[:, 0], start[:, 1], "k-", lw=1.5, label="start")
+        ax2.plot(magnified[:, 0], magnified[:, 1], "C3--", lw=1.5,
+                 label=f"start + {gain:.3g} × (end − start)")
+        ax2.set_aspect("equal")
+        ax2.legend(loc="upper right", fontsize=8)
+        ax2.set_title("the change, magnified (same curve parameter)")
         save(fig, "shapes.png")
 
         fig, ax = plt.subplots(figsize=(5.5, 5.5))
