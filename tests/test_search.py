@@ -62,6 +62,13 @@ def test_continuation_keeping_area_stays_on_the_area_level_set(tmp_path):
     assert np.all(np.diff(steps["distance"]) > 0) and steps["distance"][-1] > 0.02
     # and it is not just the radius changing (the disk class's neighbourhood is left)
     assert np.max(np.abs(steps["params"][-1][1:])) > 0.01
+    # review: the figures are written as PNG files
+    from deform.review import plot_record
+
+    figures = plot_record(rec, tmp_path / "plots")
+    assert sorted(p.name for p in figures) == ["distance.png", "drift.png", "path.png",
+                                               "shapes.png"]
+    assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in figures)
 
 
 def test_full_column_rank_cannot_move(tmp_path):
