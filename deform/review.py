@@ -223,13 +223,17 @@ def plot_record(record: Record, directory: str | Path | None = None) -> list[Pat
         fig, axes = plt.subplots(2, 1, figsize=(7, 5.5), sharex=True)
         axes[0].plot(steps["step"], steps["distance"], "C0.-")
         axes[0].set_ylabel("distance D from start")
-        axes[1].plot(steps["step"], steps["move"], "C1.-")
-        label = record.meta.get("move_label", "move objective")
-        axes[1].set_ylabel(label)
+        if record.meta.get("move_kind") == "distance" and "step_size" in steps:
+            # the moved quantity is D itself: show the adaptive step length instead
+            axes[1].semilogy(steps["step"][1:], steps["step_size"][1:], "C1.-")
+            axes[1].set_ylabel("step length (weighted)")
+        else:
+            axes[1].plot(steps["step"], steps["move"], "C1.-")
+            axes[1].set_ylabel(record.meta.get("move_label", "move objective"))
         if record.meta.get("move_target") is not None:
             axes[1].axhline(record.meta["move_target"], color="k", ls=":", label="target")
             axes[1].legend()
         axes[1].set_xlabel("step")
-        axes[0].set_title("distance and move objective per step")
+        axes[0].set_title("distance from the start and the move per step")
         save(fig, "distance.png")
     return written
