@@ -10,8 +10,10 @@ where D is the isometry-invariant distance (:func:`objectives.distance.shape_dis
 rotations, translations, reflections and reparametrization; the smooth variant D² is used in the
 loss) and D_min the distance floor. A start draws θ_A, θ_B independently as the base shape plus
 decaying random Fourier modes (amplitude ``spread``·max(|k|, 1)^−``decay``), runs optax Adam on
-the loss, then polishes with minimum-norm Gauss–Newton steps Δx = −J_r⁺ r, which converge
-quadratically onto the set r = 0 when it is reachable. A pair is *accepted* only if, at the end,
+the loss (each coordinate's step scaled by its mode weight max(|k|,1)^−decay), then polishes
+with Gauss–Newton steps that solve [J_r; ∇D²] W z = [−r; 0] in the least-squares minimum-norm
+sense and move Δx = W z: they remove the mismatch at first-order constant distance and
+converge quadratically onto the set r = 0 when it is reachable. A pair is *accepted* only if, at the end,
 mismatch ≤ tolerance, the exact D ≥ D_min (no congruent copies), both shapes are admissible
 domains, and every kept family reports an ``ok`` status (including its re-check, so orbits that
 changed branch are rejected). Each start is a pure function of (config, seed) and writes its own
@@ -47,9 +49,15 @@ def mode_index(label: str) -> int:
     return max(abs(int(found.group(1))), 1) if found else 1
 
 
+def mode_weights(family, decay: float) -> np.ndarray:
+    """max(|k|, 1)^−decay per free parameter: the start distribution's relative amplitudes and
+    the step metric of the optimizer (high modes move less, keeping the curvature tame)."""
+    return np.array([float(mode_index(lbl)) ** -decay for lbl in family.param_labels])
+
+
 def random_start(family, key: jax.Array, spread: float, decay: float) -> jax.Array:
     """Base parameters plus independent normal modes with amplitude spread·max(|k|,1)^−decay."""
-    amp = np.array([spread * float(mode_index(lbl)) ** -decay for lbl in family.param_labels])
+    amp = spread * mode_weights(family, decay)
     base = jnp.asarray(family.initial_params())
     return base + jnp.asarray(amp) * jax.random.normal(key, base.shape, dtype=jnp.float64)
 
@@ -169,21 +177,23 @@ def _boundary(shape: Shape) -> np.ndarray:
 
 
 @functools.partial(jax.jit, static_argnums=(0, 1))
-def _adam_step(problem: PairProblem, learning_rate: float, x, opt_state, sa, sb):
-    """One optax Adam step on the hunt loss (states of the kept families carried along)."""
+def _adam_step(problem: PairProblem, learning_rate: float, x, opt_state, sa, sb, metric):
+    """One optax Adam step on the hunt loss, each coordinate's step scaled by ``metric``
+    (mode weights), with the kept families' states carried along."""
     optimizer = optax.adam(learning_rate)
     (value, (r, d2, (sa, sb, codes))), grad = jax.value_and_grad(
         problem.loss, has_aux=True)(x, sa, sb)
     updates, opt_state = optimizer.update(grad, opt_state, x)
+    updates = updates * metric
     return optax.apply_updates(x, updates), opt_state, sa, sb, value, r, d2, jnp.max(codes)
 
 
 @functools.partial(jax.jit, static_argnums=0)
 def _linearized(problem: PairProblem, x, sa, sb):
-    """(∂r/∂x, r, D², states, worst status) for a Gauss–Newton step."""
+    """(∂(r, D²)/∂x, r, D², states, worst status) for a Gauss–Newton step."""
     def residual(y):
         out = problem.residual(y, sa, sb)
-        return out[0], out
+        return jnp.concatenate([out[0], out[1][None]]), out   # rows: r, then D²
 
     jac, (r, d2, (sa, sb, codes)) = jax.jacfwd(residual, has_aux=True)(x)
     return jac, r, d2, sa, sb, jnp.max(codes)
@@ -205,6 +215,8 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
     states_b = [e.evaluator.init(b.curve()) for e in problem.evaluators]
     labels = [lbl for e in problem.evaluators for lbl in e.evaluator.labels]
     opt_state = optax.adam(spec.learning_rate).init(x)
+    weights = mode_weights(problem.family, spec.decay)
+    metric = jnp.asarray(np.concatenate([weights, weights]))
     lr = float(spec.learning_rate)
 
     meta = {"index": index, "keep": [e.name for e in problem.evaluators], "labels": labels,
@@ -227,7 +239,7 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
         step = 0
         for step in range(1, spec.steps + 1):
             x, opt_state, states_a, states_b, value, r, d2, code = _adam_step(
-                problem, lr, x, opt_state, states_a, states_b)
+                problem, lr, x, opt_state, states_a, states_b, metric)
             worst = max(worst, Status(int(code)))
             if step % 25 == 0 or step == spec.steps:
                 log(step, "adam", x, value, r, d2, code)
@@ -240,8 +252,12 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
             log(step, "polish", x, float(jnp.sum(r * r)), r, d2, code)
             if float(jnp.max(jnp.abs(r))) <= 0.01 * spec.tolerance or worst is not Status.ok:
                 break
-            dx = np.linalg.lstsq(np.asarray(jac), -np.asarray(r), rcond=1e-12)[0]
-            x = x + jnp.asarray(dx)
+            # minimum-norm step in the mode-weighted metric that removes the mismatch while
+            # keeping D² fixed to first order: [J_r; ∇D²] W dz = [−r; 0], dx = W dz
+            w = np.asarray(metric)
+            rhs = np.concatenate([-np.asarray(r), [0.0]])
+            dz = np.linalg.lstsq(np.asarray(jac) * w, rhs, rcond=1e-12)[0]
+            x = x + jnp.asarray(w * dz)
         a, b = problem.split(x)
         va, states_a, codes_a = _evaluate_all(a.curve(), problem.evaluators, states_a)
         vb, states_b, codes_b = _evaluate_all(b.curve(), problem.evaluators, states_b)

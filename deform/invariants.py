@@ -148,7 +148,17 @@ def _symmetric_orbits(max_period, all_rotations, kinds, steps, tol, degenerate_t
                                                  degenerate_tol, bool(free))
         return lengths, tuple(s.u for s in sols), codes
 
-    cold = jax.jit(lambda curve: solve_all(curve, None, 6 * steps))
+    def best_of_two(curve):
+        # two cold starts (bounce points equally spaced in arclength, and in t); per orbit the
+        # longer local maximum of the reduced length is kept
+        first = solve_all(curve, None, 6 * steps)
+        second = solve_all(curve, [so.initial_guess(o) for o in orbits], 6 * steps)
+        pick = (second[0] > first[0]) & (second[2] == 0)
+        lengths = jnp.where(pick, second[0], first[0])
+        us = tuple(jnp.where(pk, b, a) for pk, a, b in zip(pick, first[1], second[1]))
+        return lengths, us, jnp.where(pick, second[2], first[2])
+
+    cold = jax.jit(best_of_two)
 
     def init(curve):
         return cold(curve)[1]
@@ -161,10 +171,14 @@ def _symmetric_orbits(max_period, all_rotations, kinds, steps, tol, degenerate_t
         codes = jnp.where(jnp.asarray(jumped), code(Status.branch_changed), codes)
         return lengths, new_state, finite_or(lengths, jnp.max(codes))
 
+    tracked = jax.jit(lambda curve, state: solve_all(curve, state, steps)[0])
+
     def recheck(curve, state):
-        fresh = cold(curve)[1]
-        same = all(bool(jnp.all(jnp.abs(a - b) < 1e-6)) for a, b in zip(fresh, state))
-        return state, code(Status.ok if same else Status.branch_changed)
+        # each kind's orbit is the maximum of the reduced length: a cold search that finds a
+        # longer symmetric orbit means the tracked one is no longer that maximum
+        fresh, now = cold(curve)[0], tracked(curve, state)
+        longer = bool(jnp.any(fresh > now * (1.0 + 1e-9)))
+        return state, code(Status.branch_changed if longer else Status.ok)
 
     return Evaluator(tuple(o.label for o in orbits), init, evaluate, recheck)
 
