@@ -1,9 +1,11 @@
 """Benchmarks for rigidity scans and pair hunts (plain script; prints figures).
 
 1. Rigidity scan of 100 invariants over 32 parameters: polar mirror class with 32 free
-   parameters (radius, cos 2θ … cos 32θ); invariants: 16 symmetric orbit lengths (periods 2–9),
-   12 heat coefficients (Dirichlet and Neumann c₀…c₅) and ∮κⁿ ds for n = 2…73 (72 values).
-   First call (compiles) and warm call, side by side.
+   parameters (radius, cos 2θ … cos 32θ); 100 rows: area, 12 symmetric orbit lengths (periods
+   2–7), 12 heat coefficients (Dirichlet and Neumann c₀…c₅) and ∮κⁿ ds, n = 2…16, at five
+   quadrature resolutions (75 rows; the registry caps max_power at 16, so the rows repeat at
+   different resolutions: they cost what distinct rows would). First call (compiles) and warm
+   call, side by side.
 2. Pair-hunt throughput: 16-mode mirror polar class keeping symmetric orbit lengths up to
    period 5; starts per minute with 1 and with 2 worker processes in the same run.
 
@@ -29,11 +31,11 @@ def bench_scan():
     params = jnp.zeros(family.n_params).at[0].set(1.0).at[1].set(0.08).at[2].set(0.03)
     params = params.at[4].set(0.01)
     shape = Shape(family, params)
-    evaluators = build_evaluators([
-        ("symmetric_orbits", {"max_period": 9}),
-        ("heat_dirichlet", {}), ("heat_neumann", {}),
-        ("curvature_moments", {"max_power": 73}),
-    ])
+    evaluators = build_evaluators(
+        [("area", {}), ("symmetric_orbits", {"max_period": 7}),
+         ("heat_dirichlet", {}), ("heat_neumann", {})]
+        + [("curvature_moments", {"max_power": 16, "resolution": n})
+           for n in (256, 320, 384, 448, 512)])
     rows = sum(len(e.evaluator.labels) for e in evaluators)
     times = []
     for _ in range(2):
