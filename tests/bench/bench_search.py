@@ -104,6 +104,13 @@ def main(quick: bool) -> None:
     print(f"  continuation step:          {per_c * 1e3:8.2f} ms   (target <= 30 ms; corrector "
           f"iterations {int(info.iterations)}, first step incl. compile {t_first:.1f} s)")
 
+    chord = text.replace("[search.move]", "[search.continuation]\ncorrector = \"chord\"\n"
+                                            "[search.move]")
+    prepared, state, _, _ = _prepared(chord)
+    per_ch, info = _per_step(prepared, state, 5 if quick else 10)
+    print(f"  continuation, chord corrector:{per_ch * 1e3:6.2f} ms   (ratio to Gauss–Newton "
+          f"{per_ch / per_c:.2f}; iterations {int(info.iterations)})")
+
     text = BIG.format(mode="continuation", move=DISTANCE, **big)
     prepared, state, t_prep, t_first = _prepared(text)
     per_d, _ = _per_step(prepared, state, 5 if quick else 10)
