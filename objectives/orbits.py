@@ -485,7 +485,11 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
             margin = 0.02 * (np.max(table) - np.min(table)) + 1e-12
             best = table[starts[0]]
             starts = [s for s in starts if abs(table[s] - best) <= margin]
-            for path in _distinct_paths(back, starts, p, n, candidates):
+            paths = _distinct_paths(back, starts, p, n, candidates)
+            # Neighbouring maxima along a near-integrable orbit family can merge on the grid:
+            # also seed from the best path shifted by ±1, ±2 points along the boundary.
+            paths += [np.mod(paths[0] + shift, n) for shift in SEED_SHIFTS]
+            for path in paths:
                 seeds.append((p, q, branch, _lift(t_grid[path], p)))
     return seeds
 
@@ -521,9 +525,12 @@ def _batch_pad(arrays, size, fill_index=0):
             if len(a) < size else a for a in arrays]
 
 
+SEED_SHIFTS = (-2, -1, 1, 2)
+
+
 def _chunk_size(max_period: int, candidates: int) -> int:
     """Batch size of the cold Newton solve: fixed per (Q, candidates) so it compiles once."""
-    n = 2 * candidates * len(rotation_numbers(max_period))
+    n = 2 * (candidates + len(SEED_SHIFTS)) * len(rotation_numbers(max_period))
     return int(16 * np.ceil(n / 16))
 
 
