@@ -526,6 +526,8 @@ def _batch_pad(arrays, size, fill_index=0):
 
 
 SEED_SHIFTS = (-2, -1, 1, 2)
+MAX_RESEED_GRID = 256
+"""Finest grid used to re-seed a failed orbit (the max-plus search costs ~n³ per rotation)."""
 
 
 def _chunk_size(max_period: int, candidates: int) -> int:
@@ -603,7 +605,7 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
     for refine in (2, 4):
         failed = [key for key, row in picked.items()
                   if row["status"] not in (Status.ok, Status.degenerate)]
-        if not failed:
+        if not failed or refine * grid > MAX_RESEED_GRID:
             break
         seeds = _seed_batch(curve, max_period, grid, candidates, only=failed, refine=refine)
         out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
