@@ -526,7 +526,7 @@ def _batch_pad(arrays, size, fill_index=0):
 
 
 SEED_SHIFTS = (-2, -1, 1, 2)
-MAX_RESEED_GRID = 256
+MAX_RESEED_GRID = 128
 """Finest grid used to re-seed a failed orbit (the max-plus search costs ~n³ per rotation)."""
 
 
