@@ -17,7 +17,7 @@ import pytest
 import scipy.spatial
 
 from deform.families import FAMILIES, Disk, Ellipse, FourierCurve, Polar, Support
-from deform.shape import Shape, from_family
+from deform.shape import Shape, from_family, rotated
 from deform.symmetry import Symmetry
 
 CLASSES = [Symmetry("none"), Symmetry("central"), Symmetry("mirror"), Symmetry("rotational", 3),
