@@ -5,10 +5,11 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 from . import __version__, runcli, scanspec
+from .arguments import positive_int
 from .errors import ConfigError, DeformError
 
 
@@ -24,15 +25,6 @@ class Command:
     arguments: Callable[[argparse.ArgumentParser], None]
     run: Callable[[argparse.Namespace], int]
 
-
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {value}")
-    return value
 
 
 def _load_shape(path: str):
@@ -71,13 +63,13 @@ def _check_run(args) -> int:
 def _measure_args(p):
     p.add_argument("config", help="config file with a [shape] table")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
-    p.add_argument("--resolution", type=_positive_int, default=None,
+    p.add_argument("--resolution", type=positive_int, default=None,
                    help="trapezoid nodes for boundary integrals (default: [measure] resolution, 256)")
-    p.add_argument("--eigenvalues", type=_positive_int, default=0, metavar="N",
+    p.add_argument("--eigenvalues", type=positive_int, default=0, metavar="N",
                    help="also compute the first N Laplace eigenvalues (boundary integral solver)")
     p.add_argument("--boundary", choices=("dirichlet", "neumann"), default="dirichlet",
                    help="boundary condition for --eigenvalues (default: dirichlet)")
-    p.add_argument("--max-period", type=_positive_int, default=7, metavar="Q",
+    p.add_argument("--max-period", type=positive_int, default=7, metavar="Q",
                    help="periodic orbits p/q with 2 ≤ q ≤ Q (default 7; 1 skips the orbit sections)")
 
 

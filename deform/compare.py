@@ -22,6 +22,7 @@ import numpy as np
 from objectives.distance import shape_distance
 from objectives.spectrum import BOUNDARIES, Spectrum
 
+from .arguments import positive_int
 from .eigen import spectrum_of
 from .errors import ConfigError
 from .shape import Shape
@@ -105,7 +106,7 @@ def load_shape(path: str, step: int | None = None) -> Shape:
 def compare_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("first", help="shape config (TOML) or run record (HDF5)")
     p.add_argument("second", help="shape config (TOML) or run record (HDF5)")
-    p.add_argument("--eigenvalues", type=_positive, default=20, metavar="N",
+    p.add_argument("--eigenvalues", type=positive_int, default=20, metavar="N",
                    help="number of eigenvalues to compare (default 20)")
     p.add_argument("--boundary", choices=BOUNDARIES, default="dirichlet",
                    help="boundary condition (default dirichlet)")
@@ -115,15 +116,6 @@ def compare_args(p: argparse.ArgumentParser) -> None:
                    help="record step to take the shape from (default: the last)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
-
-def _positive(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {value}")
-    return value
 
 
 def compare_run(args: argparse.Namespace) -> int:

@@ -9,17 +9,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from .arguments import positive_int
 from .errors import ConfigError
-
-
-def _positive(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {value}")
-    return value
 
 
 def default_output(config_path: str, configured: str) -> Path:
@@ -31,7 +22,7 @@ def run_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("config", help="config file (TOML) with [shape] and [search] tables")
     p.add_argument("--output", default=None,
                    help="record file to write (default: [search] output, else runs/NAME.h5)")
-    p.add_argument("--steps", type=_positive, default=None,
+    p.add_argument("--steps", type=positive_int, default=None,
                    help="stop after this many accepted steps (default: [search] steps)")
     p.add_argument("--resume", action="store_true",
                    help="continue the record at --output from its last completed step")
@@ -103,7 +94,7 @@ def plot_run(args: argparse.Namespace) -> int:
 
 def demo_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--output", default="runs/demo.h5", help="record file (default runs/demo.h5)")
-    p.add_argument("--steps", type=_positive, default=None,
+    p.add_argument("--steps", type=positive_int, default=None,
                    help="accepted steps (default: the demo config's)")
 
 
