@@ -67,9 +67,12 @@ def main() -> None:
             value = jax.jit(lambda p: heat.heat_coefficients(curve(p), boundary, 5, resolution))
             grad = jax.jit(jax.jacrev(value))
             _, t_val = median_time(value, params)
+            both = jax.jit(jax.value_and_grad(lambda p: jnp.sum(value(p) ** 2)))
             _, t_grad = median_time(grad, params)
+            _, t_both = median_time(both, params)
             print(f"  heat {boundary:9s} c0..c5, n={resolution:3d}  value {1e3 * t_val:7.3f} ms   "
-                  f"jacobian {1e3 * t_grad:7.3f} ms   ratio {t_grad / t_val:5.1f}")
+                  f"jacobian {1e3 * t_grad:7.3f} ms   ratio {t_grad / t_val:5.1f}   "
+                  f"value+gradient of a scalar loss {1e3 * t_both:7.3f} ms")
 
     other = rotated(shape.with_params(params + 1e-3), 0.3).curve()
     dist = jax.jit(lambda p: shape_distance(curve(p), other, smooth=True))
