@@ -250,12 +250,17 @@ def _winding(t, q):
 # Newton's method on ∇W = 0 with a pseudo-inverse Hessian
 
 
-def _newton_direction(curve, t, q):
+def _length_derivatives(curve, t, q):
+    """(∇W, ∇²W, mask of the q active slots) at padded bounce parameters t."""
     jets = billiard.bounce_jets(curve, t)
     chords = billiard.chords_from_jets(jets, q)
     grad = billiard.length_gradient_from(jets, chords, q)
     hess = billiard.length_hessian_from(jets, chords, q)
-    active = jnp.arange(t.shape[0]) < q
+    return grad, hess, jnp.arange(t.shape[0]) < q
+
+
+def _newton_direction(curve, t, q):
+    grad, hess, active = _length_derivatives(curve, t, q)
     hess = hess + jnp.diag(jnp.where(active, 0.0, 1.0))
     lam, vec = jnp.linalg.eigh(hess)
     scale = jnp.max(jnp.abs(lam))
@@ -264,11 +269,7 @@ def _newton_direction(curve, t, q):
 
 
 def _grad_hess(curve, t, q):
-    jets = billiard.bounce_jets(curve, t)
-    chords = billiard.chords_from_jets(jets, q)
-    grad = billiard.length_gradient_from(jets, chords, q)
-    hess = billiard.length_hessian_from(jets, chords, q)
-    active = jnp.arange(t.shape[0]) < q
+    grad, hess, active = _length_derivatives(curve, t, q)
     # Padded slots: decoupled, below every active eigenvalue, zero gradient.
     pad = -(1.0 + 2.0 * jnp.max(jnp.abs(hess)))
     return grad, hess + jnp.diag(jnp.where(active, 0.0, pad))
