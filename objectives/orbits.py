@@ -396,15 +396,17 @@ def _local_extrema(values: np.ndarray, maxima: bool) -> np.ndarray:
     return idx[np.argsort(-v[idx], kind="stable")]
 
 
-def _distinct_paths(back, starts, p, n, count):
-    """Up to ``count`` grid paths from the given starts that are not the same orbit."""
-    keys, paths = [], []
+def _distinct_paths(back, starts, p, n, count, separation=1):
+    """Up to ``count`` grid paths from the given starts (best first) that are not the same orbit:
+    a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
+    an already kept path is a grid variant of it."""
+    kept, paths = [], []
     for s in starts:
         path = birkhoff_path(back, int(s), p, n)
-        key = np.sort(path)
-        if any(np.all(np.abs(key - k) <= 1) for k in keys):
+        gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
+        if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
             continue
-        keys.append(key)
+        kept.append(path)
         paths.append(path)
         if len(paths) == count:
             break
@@ -481,12 +483,11 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
             if only is not None and (p, q, branch) not in only:
                 continue
+            # Every local extremum of B, best first: on a coarse grid the discretization error of
+            # B exceeds the gap between near-tied orbits, so no value margin is imposed; grid
+            # variants of one orbit are merged, so the ``candidates`` seeds are distinct orbits.
             starts = _local_extrema(table, maxima)
-            # Only extrema whose discrete value competes with the best can win after refinement.
-            margin = 0.02 * (np.max(table) - np.min(table)) + 1e-12
-            best = table[starts[0]]
-            starts = [s for s in starts if abs(table[s] - best) <= margin]
-            paths = _distinct_paths(back, starts, p, n, candidates)
+            paths = _distinct_paths(back, starts, p, n, candidates, max(1, n // (6 * q)))
             # Neighbouring maxima along a near-integrable orbit family can merge on the grid:
             # also seed from the best path shifted by ±1, ±2 points along the boundary.
             paths += [np.mod(paths[0] + shift, n) for shift in SEED_SHIFTS]
