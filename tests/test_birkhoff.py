@@ -272,16 +272,22 @@ def test_rotation_of_iterated_billiard_map_matches_normal_form():
     curve = from_family(GENERIC).curve()
     result = birkhoff_invariants(curve, MINOR_AXIS, order=ORDER)
     omega, action = _measured_rotation(curve, result, np.geomspace(0.015, 0.05, 6), 2500)
+    alpha, tau = _assert_quartic_remainder(result, omega, action)
+    fit = np.polyfit(action, omega - alpha, 4)[::-1]  # ω − α = c₀ + c₁I + … (c₀ ≈ 0)
+    assert abs(fit[1] - tau[0]) < 1e-4 * abs(tau[0]), (fit, tau)
+    assert abs(fit[2] - tau[1]) < 0.05 * abs(tau[1]), (fit, tau)
+
+
+
+def _assert_quartic_remainder(result, omega, action):
+    """ω(I) − (α + τ₁I + … + τ_K I^K) must decay like I^{K+1} (fitted log-log slope)."""
     alpha, tau = float(result.angle), np.asarray(result.tau)
     predicted = alpha + sum(tau[k] * action ** (k + 1) for k in range(ORDER))
     residual = np.abs(omega - predicted)
     rate = np.polyfit(np.log(action), np.log(residual), 1)[0]
     assert 3.5 < rate < 4.6, (rate, residual, action)
     assert np.all(residual < 1e-3 * np.abs(omega - alpha)), residual
-    fit = np.polyfit(action, omega - alpha, 4)[::-1]  # ω − α = c₀ + c₁I + … (c₀ ≈ 0)
-    assert abs(fit[1] - tau[0]) < 1e-4 * abs(tau[0]), (fit, tau)
-    assert abs(fit[2] - tau[1]) < 0.05 * abs(tau[1]), (fit, tau)
-
+    return alpha, tau
 
 def test_three_periodic_orbit_against_iterated_map():
     """The same dynamical measurement for the elliptic 1/3 min-max orbit of a near-circle
@@ -290,12 +296,7 @@ def test_three_periodic_orbit_against_iterated_map():
     result = birkhoff_invariants(curve, jnp.array([np.pi, 5.33, 7.24]), order=ORDER)
     assert int(result.status) == Status.ok
     omega, action = _measured_rotation(curve, result, np.geomspace(0.035, 0.09, 5), 1500)
-    alpha, tau = float(result.angle), np.asarray(result.tau)
-    predicted = alpha + sum(tau[k] * action ** (k + 1) for k in range(ORDER))
-    residual = np.abs(omega - predicted)
-    rate = np.polyfit(np.log(action), np.log(residual), 1)[0]
-    assert 3.5 < rate < 4.6, (rate, residual, action)
-    assert np.all(residual < 1e-3 * np.abs(omega - alpha)), residual
+    _assert_quartic_remainder(result, omega, action)
 
 
 # ----------------------------------------------------------------------------- derivatives
