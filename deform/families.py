@@ -19,8 +19,10 @@ from __future__ import annotations
 
 import abc
 from dataclasses import dataclass, field
+from functools import partial
 from typing import ClassVar
 
+import jax
 import jax.numpy as jnp
 import numpy as np
 
@@ -114,10 +116,44 @@ def _radial_base(scale: float, cos, sin, modes: int) -> tuple[float, ...]:
     return (float(scale),) + tuple(map(float, cos)) + tuple(map(float, sin))
 
 
+@partial(jax.custom_jvp, nondiff_argnums=(1,))
+def harmonics(t, ks: tuple[int, ...]):
+    """(cos kt, sin kt) for the wave numbers ``ks`` at a scalar t.
+
+    The derivative in t reuses the values, d/dt (cos kt, sin kt) = k(−sin kt, cos kt), so the
+    nested derivatives that curve jets take (up to fourth order) cost no further sines and
+    cosines; evaluating them is what dominates sampling a Fourier boundary.
+    """
+    top = max(abs(k) for k in ks)
+    # e^{ikt} for k = 1..top by doubling (powers 1..m times e^{imt}), from one sine and cosine:
+    # relative error ~log2(top)·ε instead of 2·top transcendental evaluations.
+    re, im = jnp.cos(t)[None], jnp.sin(t)[None]
+    while re.shape[0] < top:
+        m = re.shape[0] - 1
+        re, im = (jnp.concatenate([re, re * re[m] - im * im[m]]),
+                  jnp.concatenate([im, im * re[m] + re * im[m]]))
+    if ks == tuple(range(1, top + 1)):
+        return re[:top], im[:top]
+    if ks == tuple(range(-top, top + 1)):
+        return (jnp.concatenate([re[top - 1::-1], jnp.ones(1), re[:top]]),
+                jnp.concatenate([-im[top - 1::-1], jnp.zeros(1), im[:top]]))
+    index = np.asarray([max(abs(k) - 1, 0) for k in ks])
+    sign = np.asarray([np.sign(k) for k in ks], dtype=np.float64)
+    return jnp.where(sign == 0, 1.0, re[index]), sign * im[index]
+
+
+@harmonics.defjvp
+def _harmonics_jvp(ks, primals, tangents):
+    (t,), (dt,) = primals, tangents
+    c, s = harmonics(t, ks)
+    k = jnp.asarray(ks, dtype=jnp.float64) * dt
+    return (c, s), (-k * s, k * c)
+
+
 def _fourier_sum(coeffs, t, modes):
-    k = jnp.arange(1, modes + 1, dtype=jnp.float64)
+    cos_kt, sin_kt = harmonics(t, tuple(range(1, modes + 1)))
     c, s = coeffs[1:modes + 1], coeffs[modes + 1:]
-    return coeffs[0] + jnp.sum(c * jnp.cos(k * t) + s * jnp.sin(k * t))
+    return coeffs[0] + jnp.sum(c * cos_kt + s * sin_kt)
 
 
 @dataclass(frozen=True)
@@ -190,8 +226,9 @@ class Support(ShapeFamily):
     def boundary_full(self, coeffs, phi):
         k = jnp.arange(1, self.modes + 1, dtype=jnp.float64)
         c, s = coeffs[1:self.modes + 1], coeffs[self.modes + 1:]
-        h = coeffs[0] + jnp.sum(c * jnp.cos(k * phi) + s * jnp.sin(k * phi))
-        dh = jnp.sum(k * (-c * jnp.sin(k * phi) + s * jnp.cos(k * phi)))
+        cos_kp, sin_kp = harmonics(phi, tuple(range(1, self.modes + 1)))
+        h = coeffs[0] + jnp.sum(c * cos_kp + s * sin_kp)
+        dh = jnp.sum(k * (-c * sin_kp + s * cos_kp))
         n = jnp.stack([jnp.cos(phi), jnp.sin(phi)])
         dn = jnp.stack([-jnp.sin(phi), jnp.cos(phi)])
         return h * n + dh * dn
@@ -270,9 +307,8 @@ class FourierCurve(ShapeFamily):
 
     def boundary_full(self, coeffs, t):
         n = 2 * self.modes + 1
-        k = jnp.arange(-self.modes, self.modes + 1, dtype=jnp.float64)
         re, im = coeffs[:n], coeffs[n:]
-        c, s = jnp.cos(k * t), jnp.sin(k * t)
+        c, s = harmonics(t, tuple(range(-self.modes, self.modes + 1)))
         return jnp.stack([jnp.sum(re * c - im * s), jnp.sum(re * s + im * c)])
 
     def admissibility(self, params):
