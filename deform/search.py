@@ -237,9 +237,17 @@ def _target_quantity(problem: Problem, x, values, J):
 def constraint_status(problem: Problem, x):
     """self_intersection / not_convex (when asked) / nonfinite for a candidate shape."""
     curve = problem.curve(x)
-    simple = geometry.simplicity(curve, CONSTRAINT_RESOLUTION)
-    bad = simple.crossing | ~(simple.margin >= SIMPLICITY_FLOOR) | ~(
-        geometry.area(curve, CONSTRAINT_RESOLUTION) > 0)
+    points = jax.vmap(curve)(nodes(CONSTRAINT_RESOLUTION))
+
+    def pairwise_check(_):
+        simple = geometry.simplicity(curve, CONSTRAINT_RESOLUTION)
+        return simple.crossing | ~(simple.margin >= SIMPLICITY_FLOOR) | ~(
+            geometry.area(curve, CONSTRAINT_RESOLUTION) > 0)
+
+    # The O(n²) chord–arc test runs only when the node polygon is not convex (a convex,
+    # counter-clockwise polygon is simple), which is most steps of most searches.
+    bad = jax.lax.cond(geometry.polygon_convex(points), lambda _: jnp.asarray(False),
+                       pairwise_check, None)
     status = jnp.where(bad, code(Status.self_intersection), code(Status.ok))
     if problem.convex:
         kmin = geometry.convexity_margin(curve, CONSTRAINT_RESOLUTION)[0]

@@ -148,6 +148,18 @@ def simplicity(curve: Curve, resolution: int = DEFAULT_RESOLUTION) -> Simplicity
     return Simplicity(ratio[i, j], t[i], t[j], _polygon_crosses(p))
 
 
+def polygon_convex(p: Array) -> Array:
+    """Whether the closed polygon p turns left at every vertex with total turning 2π.
+
+    Such a polygon is convex, hence simple and counter-clockwise (elementary; common practice):
+    an O(n) certificate that spares the O(n²) :func:`simplicity` test on convex shapes.
+    """
+    e = jnp.roll(p, -1, axis=0) - p
+    nxt = jnp.roll(e, -1, axis=0)
+    turn = jnp.arctan2(cross(e, nxt), jnp.sum(e * nxt, axis=-1))
+    return jnp.all(turn > 0.0) & (jnp.abs(jnp.sum(turn) - 2.0 * jnp.pi) < 1e-6)
+
+
 def _polygon_crosses(p: Array) -> Array:
     """Whether any two non-adjacent edges of the closed polygon p intersect."""
     n = p.shape[0]

@@ -401,3 +401,25 @@ def test_jit_equals_eager_and_no_recompilation():
         assert np.allclose(eager, compiled, rtol=1e-13, atol=1e-14)
     # three eager calls trace three times; the jitted function traced exactly once more
     assert len(traces) == 4
+
+
+def test_polygon_convex_certifies_only_convex_counter_clockwise_polygons():
+    """A polygon turning left at every vertex with total turning 2π is convex and simple
+    (elementary). Counter-examples: a clockwise hexagon, a pentagram (left turns, total 4π),
+    a twice-traversed circle (4π), a figure eight (turns of both signs), a non-convex star."""
+    from objectives.geometry import polygon_convex
+
+    t = 2 * np.pi * np.arange(6) / 6
+    hexagon = np.stack([np.cos(t), np.sin(t)], axis=1)
+    assert bool(polygon_convex(jnp.asarray(hexagon)))
+    assert not bool(polygon_convex(jnp.asarray(hexagon[::-1])))
+    star = np.stack([np.cos(4 * np.pi * np.arange(5) / 5),
+                     np.sin(4 * np.pi * np.arange(5) / 5)], axis=1)
+    assert not bool(polygon_convex(jnp.asarray(star)))
+    s = 2 * np.pi * np.arange(64) / 32
+    assert not bool(polygon_convex(jnp.asarray(np.stack([np.cos(s), np.sin(s)], axis=1))))
+    s = 2 * np.pi * np.arange(64) / 64
+    eight = np.stack([np.sin(s), np.sin(s) * np.cos(s)], axis=1)
+    assert not bool(polygon_convex(jnp.asarray(eight)))
+    r = 1 + 0.3 * np.cos(5 * s)
+    assert not bool(polygon_convex(jnp.asarray(np.stack([r * np.cos(s), r * np.sin(s)], 1))))

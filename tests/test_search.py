@@ -269,3 +269,56 @@ def test_cli_errors_are_one_line_with_exit_code_2(tmp_path, capsys):
     assert "\n" not in err
     assert main(["inspect", str(tmp_path / "missing.h5")]) == 2
     assert "no such record" in capsys.readouterr().err
+
+
+def _segments_cross(points):
+    """Brute-force numpy test of every pair of non-adjacent polygon edges (common practice)."""
+    a, b = points, np.roll(points, -1, axis=0)
+    n = len(points)
+    for i in range(n):
+        for j in range(i + 2, n - (i == 0)):
+            d1, d2 = b[i] - a[i], b[j] - a[j]
+            den = d1[0] * d2[1] - d1[1] * d2[0]
+            if den == 0:
+                continue
+            r = a[j] - a[i]
+            u = (r[0] * d2[1] - r[1] * d2[0]) / den
+            v = (r[0] * d1[1] - r[1] * d1[0]) / den
+            if 0 <= u <= 1 and 0 <= v <= 1:
+                return True
+    return False
+
+
+@pytest.mark.parametrize("d, convex, simple", [
+    (0.05, True, True),    # hypotrochoid z = e^{it} + d e^{-2it}: convex for small d,
+    (0.3, False, True),    # non-convex but simple below the cusp value d = 1/2,
+    (0.8, False, False),   # looped (self-intersecting) above it (classical roulette curves)
+])
+def test_constraint_status_fast_path_agrees_with_a_brute_force_crossing_test(d, convex, simple):
+    from types import SimpleNamespace
+
+    import jax.numpy as jnp
+
+    from deform.families import FourierCurve
+    from objectives.curve import Curve
+    from objectives.status import Status
+
+    fam = FourierCurve.build([(1, 1.0, 0.0), (-2, d, 0.0)], modes=2)
+    x = jnp.asarray(fam.initial_params())
+    problem = SimpleNamespace(curve=lambda p: Curve(fam.boundary, p), convex=False)
+    status = Status(int(search.constraint_status(problem, x)))
+    points = np.asarray(jax_points(fam, x, search.CONSTRAINT_RESOLUTION))
+    assert _segments_cross(points) == (not simple)
+    assert status == (Status.ok if simple else Status.self_intersection)
+    problem.convex = True
+    status = Status(int(search.constraint_status(problem, x)))
+    assert status == (Status.ok if convex else Status.not_convex if simple
+                      else Status.self_intersection)
+
+
+def jax_points(fam, x, n):
+    import jax
+
+    from objectives.curve import Curve, nodes
+
+    return jax.vmap(Curve(fam.boundary, x))(nodes(n))
