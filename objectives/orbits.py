@@ -62,6 +62,8 @@ RESONANCE_TOL = 1e-6
 """|sin(mα/2)| below this flags a resonance of order m."""
 NEAR_TIE_TOL = 1e-6
 """Relative length difference under which two distinct orbits of one kind are a near-tie."""
+NEWTON_TOL = 1e-14
+"""The cold and warm Newton loops stop once the largest step is below this."""
 
 
 class OrbitSet(NamedTuple):
@@ -275,7 +277,7 @@ def _grad_hess(curve, t, q):
     return grad, hess + jnp.diag(jnp.where(active, 0.0, pad))
 
 
-def _newton(curve, t, q, steps, max_step, target=-1, tol=1e-14):
+def _newton(curve, t, q, steps, max_step, target=-1, tol=NEWTON_TOL):
     """Newton's method on ∇W = 0 that follows the wanted Morse type (eigenvector following).
 
     In the Hessian eigenbasis (λ_i ascending, gradient components c_i) the step is
@@ -287,6 +289,14 @@ def _newton(curve, t, q, steps, max_step, target=-1, tol=1e-14):
     pseudo-inverse along orbit families (zero eigenvalues, zero gradient). Steps are clipped to
     ``max_step``; the loop stops after ``steps`` steps or once the step is below ``tol``.
     """
+    _, t, _ = _newton_resume(curve, t, q, target, 0, jnp.inf, steps, max_step, tol)
+    # Unused slots follow bounce 0 so padded entries stay harmless.
+    return jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
+
+
+def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON_TOL):
+    """The loop of :func:`_newton` continued from ``count`` steps taken and ``last`` step size:
+    (steps taken, t, last step size). Stopping and resuming gives the same iterates as one run."""
     size = t.shape[0]
     rank = jnp.arange(size)
 
@@ -307,20 +317,26 @@ def _newton(curve, t, q, steps, max_step, target=-1, tol=1e-14):
         i, _, size = state
         return (i < steps) & (size > tol)
 
-    t = jax.lax.while_loop(going, body, (0, t, jnp.inf))[1]
-    # Unused slots follow bounce 0 so padded entries stay harmless.
-    return jnp.where(rank < q, t, t[0])
+    return jax.lax.while_loop(going, body, (jnp.asarray(count, jnp.int32), t,
+                                            jnp.asarray(last, t.dtype)))
 
 
-@partial(jax.jit, static_argnames=("steps", "iterates", "resonance_order"))
-def _solve_batch(curve, t, q, target, steps, max_step, iterates, resonance_order):
-    """Cold Newton refinement of a batch of seeds, then their orbit data."""
+@jax.jit
+def _newton_batch(curve, t, q, target, count, last, steps, max_step):
+    """:func:`_newton_resume` over a batch of seeds (``steps`` is traced: one compilation)."""
+    return jax.vmap(lambda *a: _newton_resume(curve, *a, steps, max_step))(t, q, target, count,
+                                                                           last)
 
-    def one(t, q, target):
-        t = _newton(curve, t, q, steps, max_step, target)
+
+@partial(jax.jit, static_argnames=("iterates", "resonance_order"))
+def _data_batch(curve, t, q, iterates, resonance_order):
+    """Orbit data (and the winding number) of a batch of refined configurations."""
+
+    def one(t, q):
+        t = jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
         return (t,) + orbit_data(curve, t, q, iterates, resonance_order) + (_winding(t, q),)
 
-    return jax.vmap(one)(t, q, target)
+    return jax.vmap(one)(t, q)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -522,24 +538,20 @@ def _torus_candidates(curve, n):
     return np.stack([t[cells[:, 0]] + h / 2, t[cells[:, 1]] + h / 2], axis=1)
 
 
-def _batch_pad(arrays, size, fill_index=0):
-    return [np.concatenate([a, np.repeat(a[fill_index:fill_index + 1], size - len(a), 0)])
-            if len(a) < size else a for a in arrays]
-
-
 SEED_SHIFTS = (-2, -1, 1, 2)
 MAX_RESEED_GRID = 128
 """Finest grid used to re-seed a failed orbit (the max-plus search costs ~n³ per rotation)."""
 
 
-def _chunk_size(max_period: int, candidates: int) -> int:
-    """Batch size of the cold Newton solve: fixed per (Q, candidates) so it compiles once."""
-    n = 2 * (candidates + len(SEED_SHIFTS)) * len(rotation_numbers(max_period))
-    return int(16 * np.ceil(n / 16))
+def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_order, steps,
+                 max_step):
+    """Refine every seed by :func:`_newton` (at most ``steps`` steps), then take the orbit data
+    of the distinct results. Returns (batched data, representative index per seed): seeds that
+    converged to the same configuration (same q and target, same bounce set) share one entry.
 
-
-def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, chunk, iterates, resonance_order,
-                 steps, max_step):
+    The Newton loop runs in fixed-size chunks over phases of increasing step caps, each phase
+    only on the seeds still moving: a vmapped loop runs until its slowest seed stops, so one
+    slow seed would otherwise hold a whole batch for every step (results are the same)."""
     count = len(t_seeds)
     t = np.zeros((count, slots))
     for k, ts in enumerate(t_seeds):
@@ -547,14 +559,51 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, chunk, iterates, reson
         t[k, len(ts):] = ts[0]
     qs = np.asarray(q_seeds, dtype=np.int32)
     targets = np.asarray(targets, dtype=np.int32)
-    outs = []
-    for lo in range(0, count, chunk):
-        tc, qc, gc = _batch_pad([t[lo:lo + chunk], qs[lo:lo + chunk], targets[lo:lo + chunk]],
-                                chunk)
-        out = _solve_batch(curve, jnp.asarray(tc), jnp.asarray(qc), jnp.asarray(gc), steps,
-                           max_step, iterates, resonance_order)
-        outs.append(jax.tree_util.tree_map(lambda o: np.asarray(o)[:min(chunk, count - lo)], out))
-    return jax.tree_util.tree_map(lambda *xs: np.concatenate(xs), *outs)
+    taken = np.zeros(count, dtype=np.int32)
+    last = np.full(count, np.inf)
+    moving = np.arange(count)
+    for cap in tuple(c for c in NEWTON_PHASES if c < steps) + (steps,):
+        for idx in _chunks(moving):
+            out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
+                                cap, max_step)
+            taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
+        moving = moving[(taken[moving] < steps) & (last[moving] > NEWTON_TOL)]
+        if moving.size == 0:
+            break
+    rep = _representatives(t, qs, targets)
+    distinct = np.unique(rep)
+    data = [_data_batch(curve, t[idx], qs[idx], iterates, resonance_order)
+            for idx in _chunks(distinct)]
+    data = jax.tree_util.tree_map(lambda *xs: np.concatenate([np.asarray(x) for x in xs]), *data)
+    # Chunks are padded: entry j of ``data`` belongs to seed distinct[j].
+    where = np.zeros(count, dtype=int)
+    where[distinct] = np.arange(distinct.size)
+    return data, where[rep], rep == np.arange(count)
+
+
+SOLVE_CHUNK = 32
+"""Seeds per compiled Newton batch (fixed, so one compilation serves every call; on this CPU a
+batch of 32 costs less per seed than 8 or 128)."""
+NEWTON_PHASES = (7, 10, 16)
+"""Step caps after which still-moving seeds are regrouped (most seeds stop after 5-9 steps)."""
+
+
+def _chunks(index: np.ndarray):
+    """Index arrays of at most SOLVE_CHUNK entries, padded to SOLVE_CHUNK by repeating the first
+    entry (a repeated seed takes no extra steps and its results are written twice, identically)."""
+    for lo in range(0, index.size, SOLVE_CHUNK):
+        part = index[lo:lo + SOLVE_CHUNK]
+        yield np.concatenate([part, np.full(SOLVE_CHUNK - part.size, part[0])])
+
+
+def _representatives(t, qs, targets, decimals=8):
+    """For each configuration the first one with the same q, target and bounce set (mod 2π,
+    rounded to ``decimals``); unequal roundings only cost a duplicate, never a merge."""
+    first, rep = {}, np.arange(len(qs))
+    for k, (q, target) in enumerate(zip(qs, targets)):
+        bounces = np.round(np.sort(np.mod(t[k, :q], 2 * np.pi)), decimals)
+        rep[k] = first.setdefault((int(q), int(target), bounces.tobytes()), k)
+    return rep
 
 
 def _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite, wrong_index):
@@ -587,17 +636,13 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
     if check_domain is None:
         check_domain = not _polygon_convex(curve, bouncing_grid)
     polygon = boundary_polygon(curve) if check_domain else None
-    slots = max_period
-    chunk = _chunk_size(max_period, candidates)
+    solve = partial(_refined_rows, curve, slots=max_period, iterates=iterates,
+                    resonance_order=resonance_order, steps=newton_steps, polygon=polygon)
     rows = []
 
     # Birkhoff orbits.
     seeds = _seed_batch(curve, max_period, grid, candidates)
-    out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
-                       [s[2] for s in seeds], slots, chunk,
-                       iterates, resonance_order, newton_steps, 2 * np.pi / grid)
-    solved = [_row(curve, out, k, seeds[k][0], seeds[k][1], seeds[k][2], polygon, iterates)
-              for k in range(len(seeds))]
+    solved = solve(seeds, max_step=2 * np.pi / grid)
     picked = {}
     for p, q in rotation_numbers(max_period):
         for branch in (MAX, MINIMAX):
@@ -610,24 +655,29 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
         if not failed or refine * grid > MAX_RESEED_GRID:
             break
         seeds = _seed_batch(curve, max_period, grid, candidates, only=failed, refine=refine)
-        out = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
-                           [s[2] for s in seeds], slots, chunk, iterates, resonance_order,
-                           newton_steps, 2 * np.pi / (refine * grid))
-        for k, (p, q, branch, _) in enumerate(seeds):
-            solved.append(_row(curve, out, k, p, q, branch, polygon, iterates))
+        solved += solve(seeds, max_step=2 * np.pi / (refine * grid))
         for key in failed:
             group = [r for r in solved if (r["p"], r["q"], r["branch"]) == key]
             picked[key] = _pick(group, key[2])
     rows.extend(picked.values())
 
     # Bouncing balls.
-    for row in _bouncing_balls(curve, bouncing_grid, slots, chunk, iterates, resonance_order,
-                               newton_steps, polygon):
+    for row in _bouncing_balls(curve, bouncing_grid, solve):
         same_family = lambda r: (r["degenerate"] and row["degenerate"]  # noqa: E731
                                  and abs(r["length"] - row["length"]) < 1e-9 * row["length"])
         if not any(r["q"] == 2 and (_same_orbit(r, row) or same_family(r)) for r in rows):
             rows.append(row)
     return _to_set(rows, iterates)
+
+
+def _refined_rows(curve, seeds, slots, iterates, resonance_order, steps, max_step, polygon):
+    """Rows of the distinct orbits refined from ``seeds`` = [(p, q, branch, t)]; the Newton
+    target follows the branch (any critical point for bouncing balls)."""
+    targets = [{MAX: 0, MINIMAX: 1}.get(branch, -1) for _, _, branch, _ in seeds]
+    data, where, first = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
+                                      targets, slots, iterates, resonance_order, steps, max_step)
+    return [_row(curve, data, where[k], p, q, branch, polygon, iterates)
+            for k, (p, q, branch, _) in enumerate(seeds) if first[k]]
 
 
 def _row(curve, out, k, p, q, branch, polygon, iterates):
@@ -678,17 +728,13 @@ def _polygon_convex(curve, n):
     return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
 
 
-def _bouncing_balls(curve, n, slots, chunk, iterates, resonance_order, steps, polygon):
+def _bouncing_balls(curve, n, solve):
     seeds = _torus_candidates(curve, n)
     if len(seeds) == 0:
         return []
-    seeds = seeds[:512]
-    out = _solve_seeds(curve, list(seeds), [2] * len(seeds), [-1] * len(seeds), slots, chunk,
-                       iterates,
-                       resonance_order, steps, 2 * np.pi / n)
+    solved = solve([(1, 2, CRITICAL, t) for t in seeds[:512]], max_step=2 * np.pi / n)
     rows = []
-    for k in range(len(seeds)):
-        row = _row(curve, out, k, 1, 2, CRITICAL, polygon, iterates)
+    for row in solved:
         if row["status"] in (Status.orbit_not_converged, Status.nonfinite):
             continue
         if row["status"] == Status.branch_changed:  # winding check is meaningless for q = 2
