@@ -367,40 +367,64 @@ def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray
     return t_grid, points
 
 
-def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, list[np.ndarray]]:
+class BirkhoffTables(NamedTuple):
+    """What :func:`birkhoff_path` needs to trace optimal paths: ``values[j][s, a]`` the best
+    length of j chords from grid point s advancing a points, ``chords[k − 1, x]`` the chord
+    from point x mod n advancing k points (x up to 2n + pn)."""
+
+    values: list
+    chords: np.ndarray
+
+
+def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, BirkhoffTables]:
     """Discrete Birkhoff function by max-plus dynamic programming.
 
     B[s] = max over closed paths of q chords through grid points starting at point s and
     advancing (counter-clockwise, each step 1..n−1 points) p full turns of the summed chord
-    lengths. Returns B and the back-pointers for :func:`birkhoff_path`.
+    lengths. Returns B and the tables for :func:`birkhoff_path`.
+
+    Step j: V_j[s, a] = max_k V_{j−1}[s, a − k] + h(s + a − k, k) over k = 1..n−1, evaluated as
+    one strided (s, k, a) sum reduced over k (no back-pointers: paths are traced afterwards).
     """
     n = points.shape[0]
+    target = p * n
     dist = np.linalg.norm(points[None, :, :] - points[:, None, :], axis=-1)
     ks = np.arange(1, n)
-    chord = dist[np.arange(n)[:, None], (np.arange(n)[:, None] + ks[None, :]) % n]  # (n, n−1)
-    target = p * n
-    pos = (np.arange(n)[:, None] + np.arange(target + 1)[None, :]) % n
-    gain = chord[pos]  # (start, advance, step−1)
-    value = np.full((n, target + 1), -np.inf)
-    value[:, 0] = 0.0
-    pad = np.full((n, n - 1, n - 1), -np.inf)
-    back = []
-    for _ in range(q):
-        leave = np.concatenate([pad, value[:, :, None] + gain], axis=1)
-        s0, s1, s2 = leave.strides
-        view = as_strided(leave[:, n - 2:, :], shape=(n, target + 1, n - 1),
-                          strides=(s0, s1, s2 - s1), writeable=False)
-        arg = np.argmax(view, axis=2)
-        value = np.take_along_axis(view, arg[..., None], axis=2)[..., 0]
-        back.append(arg)
-    return value[:, target], back
+    # chords[k − 1, x] = |γ_{x+k} − γ_x| for x = 0 .. 2n + pn (indices mod n).
+    x = np.arange(2 * n + target)
+    chords = np.ascontiguousarray(dist[x[None, :] % n, (x[None, :] + ks[:, None]) % n])
+    c0, c1 = chords.strides
+    # Views: gain[s, k − 1, a] = chords[k − 1, s + a − k + n], shifted[s, k − 1, a] =
+    # V[s, a − k] = padded[s, n − 1 + a − k] (−inf for a < k).
+    padded = np.full((n, n - 1 + target + 1), -np.inf)
+    padded[:, n - 1] = 0.0
+    p0, p1 = padded.strides
+    buffer = np.empty((n, n - 1, target + 1))
+    values = [padded[:, n - 1:].copy()]
+    for j in range(1, q + 1):
+        # Only advances reachable in j chords from which q − j more can still close the path.
+        lo, hi = max(j, target - (q - j) * (n - 1)), min(j * (n - 1), target)
+        width = hi - lo + 1
+        shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
+                             strides=(p0, -p1, p1), writeable=False)
+        gain = as_strided(chords[:, n - 1 + lo:], shape=(n, n - 1, width),
+                          strides=(c1, c0 - c1, c1), writeable=False)
+        np.add(shifted, gain, out=buffer[:, :, :width])
+        best = buffer[:, :, :width].max(axis=1)
+        padded[:, n - 1:] = -np.inf
+        padded[:, n - 1 + lo:n + hi] = best
+        values.append(padded[:, n - 1:].copy())
+    return values[-1][:, target], BirkhoffTables(values, chords)
 
 
-def birkhoff_path(back: list[np.ndarray], start: int, p: int, n: int) -> np.ndarray:
-    """Grid indices of the optimal path from ``start`` (q entries, cyclically ordered)."""
+def birkhoff_path(back: BirkhoffTables, start: int, p: int, n: int) -> np.ndarray:
+    """Grid indices of the optimal path from ``start`` (q entries, cyclically ordered); ties go
+    to the shortest last chord."""
     advance, out = p * n, []
-    for arg in reversed(back):
-        advance -= int(arg[start, advance]) + 1
+    for previous in reversed(back.values[:-1]):
+        k = np.arange(1, min(n - 1, advance) + 1)
+        gains = previous[start, advance - k] + back.chords[k - 1, start + advance - k + n]
+        advance -= int(k[np.argmax(gains)])
         out.append((start + advance) % n)
     return np.asarray(out[::-1])
 
