@@ -19,12 +19,13 @@ from __future__ import annotations
 
 import abc
 from dataclasses import dataclass, field
-from functools import partial
+from functools import lru_cache
 from typing import ClassVar
 
 import jax
 import jax.numpy as jnp
 import numpy as np
+from jax.experimental import jet
 
 from .symmetry import Symmetry
 
@@ -116,7 +117,6 @@ def _radial_base(scale: float, cos, sin, modes: int) -> tuple[float, ...]:
     return (float(scale),) + tuple(map(float, cos)) + tuple(map(float, sin))
 
 
-@partial(jax.custom_jvp, nondiff_argnums=(1,))
 def harmonics(t, ks: tuple[int, ...]):
     """(cos kt, sin kt) for the wave numbers ``ks`` at a scalar t.
 
@@ -124,7 +124,34 @@ def harmonics(t, ks: tuple[int, ...]):
     nested derivatives that curve jets take (up to fourth order) cost no further sines and
     cosines; evaluating them is what dominates sampling a Fourier boundary.
     """
-    top = max(abs(k) for k in ks)
+    ks = tuple(int(k) for k in ks)
+    if isinstance(t, jet.JetTracer):
+        # Taylor mode (objectives.birkhoff) cannot trace custom_jvp functions
+        # (UnexpectedTracerError in jax 0.10); the plain table has polynomial jet cost anyway.
+        return _harmonic_table(t, ks)
+    return _harmonics_of(ks)(t)
+
+
+@lru_cache(maxsize=None)
+def _harmonics_of(ks: tuple[int, ...]):
+    wave = np.asarray(ks, dtype=np.float64)
+
+    @jax.custom_jvp
+    def values(t):
+        return _harmonic_table(t, ks)
+
+    @values.defjvp
+    def _jvp(primals, tangents):
+        (t,), (dt,) = primals, tangents
+        c, s = values(t)
+        k = wave * dt
+        return (c, s), (-k * s, k * c)
+
+    return values
+
+
+def _harmonic_table(t, ks):
+    top = max(max(abs(k) for k in ks), 1)
     # e^{ikt} for k = 1..top by doubling (powers 1..m times e^{imt}), from one sine and cosine:
     # relative error ~log2(top)·ε instead of 2·top transcendental evaluations.
     re, im = jnp.cos(t)[None], jnp.sin(t)[None]
@@ -140,14 +167,6 @@ def harmonics(t, ks: tuple[int, ...]):
     index = np.asarray([max(abs(k) - 1, 0) for k in ks])
     sign = np.asarray([np.sign(k) for k in ks], dtype=np.float64)
     return jnp.where(sign == 0, 1.0, re[index]), sign * im[index]
-
-
-@harmonics.defjvp
-def _harmonics_jvp(ks, primals, tangents):
-    (t,), (dt,) = primals, tangents
-    c, s = harmonics(t, ks)
-    k = jnp.asarray(ks, dtype=jnp.float64) * dt
-    return (c, s), (-k * s, k * c)
 
 
 def _fourier_sum(coeffs, t, modes):

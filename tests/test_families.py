@@ -186,3 +186,13 @@ def test_harmonics_and_their_derivatives_match_the_closed_form(ks):
                              k**m * np.sin(k * t + m * np.pi / 2)])
             scale = np.maximum(np.abs(k), 1.0) ** m
             assert np.max(np.abs(got - want) / scale) < 1e-12, (t, m)
+        # Taylor mode (jax.experimental.jet) takes its own path: the same derivatives.
+        from jax.experimental import jet
+
+        series = [jnp.ones(())] + [jnp.zeros(())] * 3
+        _, terms = jet.jet(lambda s: jnp.stack(harmonics(s, ks)), (jnp.asarray(t),), (series,))
+        for m, term in enumerate(terms, start=1):
+            want = np.stack([k**m * np.cos(k * t + m * np.pi / 2),
+                             k**m * np.sin(k * t + m * np.pi / 2)])
+            scale = np.maximum(np.abs(k), 1.0) ** m
+            assert np.max(np.abs(np.asarray(term) - want) / scale) < 1e-12, (t, m, "jet")
