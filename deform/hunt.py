@@ -37,6 +37,7 @@ import optax
 from objectives.distance import shape_distance
 from objectives.status import Status
 
+from .invariants import evaluate_families
 from .rigidity import NamedEvaluator, build_evaluators, row_scales
 from .shape import Shape, from_family
 
@@ -63,13 +64,9 @@ def random_start(family, key: jax.Array, spread: float, decay: float) -> jax.Arr
 
 
 def _evaluate_all(curve, evaluators: Sequence[NamedEvaluator], states):
-    values, new_states, codes = [], [], []
-    for named, state in zip(evaluators, states):
-        v, st, status = named.evaluator.evaluate(curve, state)
-        values.append(jnp.atleast_1d(v))
-        new_states.append(st)
-        codes.append(jnp.max(jnp.atleast_1d(status)))
-    return jnp.concatenate(values), new_states, jnp.stack(codes)
+    values, new_states, codes = evaluate_families([named.evaluator for named in evaluators],
+                                                  curve, states)
+    return jnp.concatenate(values), list(new_states), codes
 
 
 @dataclass(frozen=True, eq=False)

@@ -23,15 +23,61 @@ from objectives.status import Status, code, finite_or
 from .errors import ConfigError
 
 
+class Shared(NamedTuple):
+    """A warm computation several families read from: ``advance(curve, state) -> (state,
+    status)`` runs once per evaluation for all evaluators with an equal ``key`` (which must
+    determine ``init`` too), ``read(state) -> values`` gives each family its entries."""
+
+    key: Any
+    advance: Callable[[Curve, Any], tuple[Any, Any]]
+    read: Callable[[Any], Any]
+
+
 class Evaluator(NamedTuple):
     """``recheck(curve, state) -> (state, status)`` is an optional cheap identity re-check
     (e.g. re-running a global orbit search) that searches call every few accepted steps and
-    at the end, outside jit; a non-ok status (``branch_changed``…) stops the search."""
+    at the end, outside jit; a non-ok status (``branch_changed``…) stops the search.
+    ``shared`` (optional) lets :func:`evaluate_families` run one warm solve for several
+    families, e.g. orbit lengths and traces of the same orbits."""
 
     labels: tuple[str, ...]
     init: Callable[[Curve], Any]
     evaluate: Callable[[Curve, Any], tuple[Any, Any, Any]]
     recheck: Callable[[Curve, Any], tuple[Any, Any]] | None = None
+    shared: Shared | None = None
+
+
+def init_families(evaluators, curve: Curve) -> tuple:
+    """Cold states of several evaluators; families with one shared key run ``init`` once."""
+    done, states = {}, []
+    for ev in evaluators:
+        key = None if ev.shared is None else ev.shared.key
+        if key is None or key not in done:
+            state = ev.init(curve)
+            if key is not None:
+                done[key] = state
+        states.append(state if key is None else done[key])
+    return tuple(states)
+
+
+def evaluate_families(evaluators, curve: Curve, states) -> tuple[list, tuple, Any]:
+    """Warm evaluation of several evaluators: (values per family as 1-d arrays, new states,
+    per-family status codes). Shared warm solves run once (jittable; the states of families
+    with one key are equal by construction, so the first one's is advanced)."""
+    advanced, values, new_states, codes = {}, [], [], []
+    for ev, state in zip(evaluators, states):
+        if ev.shared is None:
+            v, st, status = ev.evaluate(curve, state)
+        else:
+            if ev.shared.key not in advanced:
+                advanced[ev.shared.key] = ev.shared.advance(curve, state)
+            st, status = advanced[ev.shared.key]
+            v = ev.shared.read(st)
+            status = finite_or(jnp.atleast_1d(v), status)
+        values.append(jnp.atleast_1d(v).astype(jnp.float64))
+        new_states.append(st)
+        codes.append(jnp.max(jnp.atleast_1d(jnp.asarray(status, dtype=jnp.int32))))
+    return values, tuple(new_states), jnp.stack(codes)
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ from objectives import wave
 from objectives.status import Status, code, finite_or
 
 from .errors import ConfigError
-from .invariants import Evaluator, InvariantFamily, register
+from .invariants import Evaluator, InvariantFamily, Shared, register
 
 
 def _check_period(name: str, max_period) -> int:
@@ -65,30 +65,41 @@ def _recheck(max_period):
     return recheck
 
 
-def _evaluator(labels, select, max_period, iterates, values_fn):
+def _advance(curve, state):
+    fresh = orb.refine_orbits(curve, state)
+    return fresh, jnp.max(fresh.status)
+
+
+def _evaluator(labels, select, max_period, iterates, values_fn, selection):
+    """``selection`` names the orbits ``select`` keeps: families with equal (selection,
+    max_period, iterates) track the same orbits and share one warm solve."""
+
     def init(curve):
         return _to_state(select(orb.find_orbits(curve, max_period, iterates=iterates)))
 
     def evaluate(curve, state):
-        fresh = orb.refine_orbits(curve, state)
+        fresh, status = _advance(curve, state)
         values = values_fn(fresh)
-        return values, fresh, finite_or(values, jnp.max(fresh.status))
+        return values, fresh, finite_or(values, status)
 
-    return Evaluator(labels, init, evaluate, _recheck(max_period))
+    shared = Shared(("orbits", selection, max_period, iterates), _advance, values_fn)
+    return Evaluator(labels, init, evaluate, _recheck(max_period), shared)
 
 
 def _orbit_lengths(max_period, branches):
     max_period = _check_period("orbit_lengths", max_period)
-    names, select = _birkhoff_selection(max_period, _check_branches("orbit_lengths", branches))
+    branches = _check_branches("orbit_lengths", branches)
+    names, select = _birkhoff_selection(max_period, branches)
     return _evaluator(tuple(f"L[{n}]" for n in names), select, max_period, 1,
-                      lambda o: o.length)
+                      lambda o: o.length, ("birkhoff", branches))
 
 
 def _orbit_traces(max_period, branches):
     max_period = _check_period("orbit_traces", max_period)
-    names, select = _birkhoff_selection(max_period, _check_branches("orbit_traces", branches))
+    branches = _check_branches("orbit_traces", branches)
+    names, select = _birkhoff_selection(max_period, branches)
     return _evaluator(tuple(f"tr[{n}]" for n in names), select, max_period, 1,
-                      lambda o: o.trace)
+                      lambda o: o.trace, ("birkhoff", branches))
 
 
 def _bouncing_balls(count):
@@ -105,7 +116,8 @@ def _bouncing_balls(count):
         return orbits.select(idx[:count])
 
     labels = tuple(f"L[bb{k}]" for k in range(count)) + tuple(f"tr[bb{k}]" for k in range(count))
-    return _evaluator(labels, select, 2, 1, lambda o: jnp.concatenate([o.length, o.trace]))
+    return _evaluator(labels, select, 2, 1, lambda o: jnp.concatenate([o.length, o.trace]),
+                      ("bouncing", count))
 
 
 def _wave(max_period, iterates, boundary):
@@ -123,7 +135,8 @@ def _wave(max_period, iterates, boundary):
         # Degenerate terms (orbit families) have no isolated amplitude: reported as 0.
         return jnp.where(terms.usable, terms.amplitude, 0.0)
 
-    return _evaluator(labels, select, max_period, iterates, values)
+    return _evaluator(labels, select, max_period, iterates, values,
+                      ("birkhoff", ("max", "minimax")))
 
 
 register(InvariantFamily(

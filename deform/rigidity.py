@@ -33,7 +33,7 @@ import numpy as np
 from objectives.curve import DEFAULT_RESOLUTION, nodes
 from objectives.status import Status
 
-from .invariants import Evaluator
+from .invariants import Evaluator, evaluate_families, init_families
 from .scanspec import PathSpec
 from .shape import Shape
 
@@ -95,13 +95,10 @@ def _jacobian_fn(evaluators: tuple[NamedEvaluator, ...]):
 
     def values_of(params, shape, states):
         curve = shape.with_params(params).curve()
-        vals, codes = [], []
-        for named, state in zip(evaluators, states):
-            v, _, status = named.evaluator.evaluate(curve, state)
-            vals.append(jnp.atleast_1d(v))
-            codes.append(jnp.max(jnp.atleast_1d(status)))
+        vals, _, codes = evaluate_families([named.evaluator for named in evaluators], curve,
+                                           states)
         values = jnp.concatenate(vals)
-        return values, (values, jnp.stack(codes))
+        return values, (values, codes)
 
     return jax.jit(lambda shape, states: jax.jacfwd(values_of, has_aux=True)(
         shape.params, shape, states))
@@ -114,7 +111,7 @@ def evaluate_jacobian(shape: Shape, evaluators: Sequence[NamedEvaluator], states
     """
     if states is None:
         curve = shape.curve()
-        states = [named.evaluator.init(curve) for named in evaluators]
+        states = list(init_families([named.evaluator for named in evaluators], curve))
     jac, (values, codes) = _jacobian_fn(tuple(evaluators))(shape, list(states))
     return np.asarray(values), np.asarray(jac), np.asarray(codes), states
 

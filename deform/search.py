@@ -179,14 +179,9 @@ def build_problem(family: ShapeFamily, spec: SearchSpec, options: InvariantOptio
 
 def _evaluate_all(problem: Problem, x, states):
     """(values of every tracked family, new states, per-family status codes)."""
-    curve = problem.curve(x)
-    values, new_states, codes = [], [], []
-    for evaluator, state in zip(problem.evaluators, states):
-        v, s, c = evaluator.evaluate(curve, state)
-        values.append(jnp.atleast_1d(v).astype(jnp.float64))
-        new_states.append(s)
-        codes.append(jnp.asarray(c, dtype=jnp.int32))
-    return jnp.concatenate(values), tuple(new_states), jnp.stack(codes)
+    values, new_states, codes = registry.evaluate_families(problem.evaluators,
+                                                           problem.curve(x), states)
+    return jnp.concatenate(values), new_states, codes
 
 
 def _residual(problem: Problem, ctx: Context, x, states):
@@ -217,13 +212,16 @@ def _move_objective(problem: Problem, ctx: Context, x, states):
 
 
 def _linearized(problem: Problem, x, states):
-    """(values, ∂values/∂x, new states, status codes) in one forward-mode pass."""
+    """(values, ∂values/∂x, new states, status codes) by one automatic differentiation."""
 
     def f(p):
         values, new_states, codes = _evaluate_all(problem, p, states)
         return values, (values, new_states, codes)
 
-    J, (values, new_states, codes) = jax.jacfwd(f, has_aux=True)(x)
+    # reverse mode when there are fewer tracked values than parameters (one backward pass per
+    # value), forward mode otherwise
+    jacobian = jax.jacrev if len(problem.labels) < x.shape[0] else jax.jacfwd
+    J, (values, new_states, codes) = jacobian(f, has_aux=True)(x)
     return values, J, new_states, codes
 
 
@@ -265,7 +263,7 @@ def _unit(v):
 
 
 def _null_space(J, rank_tolerance):
-    """SVD pieces: projector onto null(J), pseudo-inverse action, rank and null dimension."""
+    """SVD pieces: projector onto null(J), pseudo-inverse J⁺, rank and null dimension."""
     m, n = J.shape
     U, S, Vt = jnp.linalg.svd(J, full_matrices=True)
     k = S.shape[0]
@@ -273,11 +271,8 @@ def _null_space(J, rank_tolerance):
     null_mask = jnp.concatenate([~in_rank, jnp.ones(n - k, dtype=bool)]) if n > k else ~in_rank
     projector = Vt.T @ (null_mask[:, None].astype(J.dtype) * Vt)
     inv_s = jnp.where(in_rank, 1.0 / jnp.where(in_rank, S, 1.0), 0.0)
-
-    def pinv_apply(r):
-        return Vt[:k].T @ ((U[:, :k].T @ r) * inv_s)
-
-    return projector, pinv_apply, jnp.sum(in_rank), jnp.sum(null_mask)
+    pinv = Vt[:k].T @ (inv_s[:, None] * U[:, :k].T)
+    return projector, pinv, jnp.sum(in_rank), jnp.sum(null_mask)
 
 
 def make_continuation(problem: Problem, spec: SearchSpec):
@@ -299,8 +294,8 @@ def make_continuation(problem: Problem, spec: SearchSpec):
                              J[:problem.n_kept] / ctx.scales[:, None])
         values_x, J_x, _, _ = _linearized(problem, x, states)
         # all linear algebra in the weighted coordinates y (x = x₀ + W y)
-        projector, pinv_apply, _, null_dim = _null_space(kept(values_x, J_x)[1] * w,
-                                                         cs.rank_tolerance)
+        projector, pinv_x, _, null_dim = _null_space(kept(values_x, J_x)[1] * w,
+                                                     cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
         if problem.move_kind == "distance":
             objective, move_grad = jax.value_and_grad(
@@ -330,24 +325,31 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         predicted = x + h * direction
 
         def not_done(carry):
-            _, values, J, _, _, it = carry
-            r = kept(values, J)[0]
+            _, values, _, _, _, it, _ = carry
+            r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
             return (it < cs.corrector_iterations) & ~(jnp.max(jnp.abs(r)) <= cs.tolerance)
 
-        def correct(carry):
-            p, values, J, st, codes, it = carry
-            r, Jr = kept(values, J)
-            if cs.corrector == "newton":  # Gauss–Newton: minimal-norm step with J at p
-                p = p - w * (jnp.linalg.pinv(Jr * w, rtol=cs.rank_tolerance) @ r)
-                values, J, st, codes = _linearized(problem, p, st)
-            else:  # chord: J frozen at the base point
-                p = p - w * pinv_apply(r)
-                values, st, codes = _evaluate_all(problem, p, st)
-            return p, values, J, st, codes, it + 1
+        def pinv_at(p, st):
+            J = _linearized(problem, p, st)[1][:problem.n_kept] / ctx.scales[:, None]
+            return jnp.linalg.pinv(J * w, rtol=cs.rank_tolerance)
 
-        x_new, values, _, states_new, codes, iterations = jax.lax.while_loop(
+        def correct(carry):
+            p, values, pinv, st, codes, it, previous = carry
+            r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+            size = jnp.max(jnp.abs(r))
+            # Gauss–Newton ("newton") takes J at every iterate; the chord method keeps the base
+            # point's J and refreshes it only when the residual contracts by less than half.
+            refresh = (cs.corrector == "newton") | (size > 0.5 * previous)
+            pinv = jax.lax.cond(refresh, pinv_at, lambda p, st: pinv, p, st)
+            p = p - w * (pinv @ r)
+            values, st, codes = _evaluate_all(problem, p, st)
+            return p, values, pinv, st, codes, it + 1, size
+
+        values_pred, states_pred, codes_pred = _evaluate_all(problem, predicted, states)
+        x_new, values, _, states_new, codes, iterations, _ = jax.lax.while_loop(
             not_done, correct,
-            (predicted, *_linearized(problem, predicted, states), jnp.asarray(0, jnp.int32)))
+            (predicted, values_pred, pinv_x, states_pred, codes_pred, jnp.asarray(0, jnp.int32),
+             jnp.asarray(jnp.inf)))
         r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
         residual = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
         converged = residual <= cs.tolerance
@@ -401,14 +403,31 @@ def _optimizer(spec: SearchSpec) -> optax.GradientTransformationExtraArgs:
 
 
 def make_penalty(problem: Problem, spec: SearchSpec):
-    """(init, update) for the penalty / augmented-Lagrangian descent."""
+    """(init, update) for the penalty / augmented-Lagrangian descent.
+
+    One evaluation per step: ``update`` evaluates the invariants and the loss gradient at the
+    candidate x + s·u (u the optimizer update pending from the last accepted point x), accepts
+    or rejects it, and on acceptance computes the next pending update from that same gradient.
+    A rejection halves s and retries from x. The first call (:func:`prepare` makes it) evaluates
+    the start, where u = 0, and only primes u.
+    """
     ps = spec.penalty
     tx = _optimizer(spec)
 
-    def loss(ctx, x, states, multipliers):
-        r = _residual(problem, ctx, x, states)[0]
-        fit = 0.5 * ps.weight * jnp.sum(r * r) + jnp.sum(multipliers * r)
-        return fit - ps.move_weight * _move_objective(problem, ctx, x, states)
+    def forward(ctx, x, states):
+        """(relative residuals r, move objective) with (values, states, codes) as aux."""
+        values, new_states, codes = _evaluate_all(problem, x, states)
+        r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+        if problem.move_kind == "distance":
+            objective = _move_objective(problem, ctx, x, states)
+        else:
+            q = _move_quantity(problem, ctx, x, values)
+            objective = -0.5 * (q - problem.move_target) ** 2
+        return (r, objective), (values, new_states, codes)
+
+    def loss_of(r, objective, multipliers):
+        return (0.5 * ps.weight * jnp.sum(r * r) + jnp.sum(multipliers * r)
+                - ps.move_weight * objective)
 
     def init(ctx: Context, key, evaluator_states) -> SearchState:
         x = jnp.asarray(ctx.start)
@@ -421,34 +440,40 @@ def make_penalty(problem: Problem, spec: SearchSpec):
     def update(ctx: Context, state: SearchState):
         TRACES["penalty"] += 1
         x, states = state.params, state.evaluator_states
-        value_fn = lambda p: loss(ctx, p, states, state.multipliers)  # noqa: E731
-        value, grad = jax.value_and_grad(value_fn)(x)
-        updates, opt_state = tx.update(grad, state.opt_state, x, value=value, grad=grad,
-                                       value_fn=value_fn)
-        x_new = x + state.step_size * updates
-        values, states_new, codes = _evaluate_all(problem, x_new, states)
-        r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+        candidate = x + state.step_size * state.tangent
+        (r, objective), pullback, (values, states_new, codes) = jax.vjp(
+            lambda p: forward(ctx, p, states), candidate, has_aux=True)
         residual = jnp.max(jnp.abs(r))
-        status = combine(jnp.max(codes), constraint_status(problem, x_new),
+        status = combine(jnp.max(codes), constraint_status(problem, candidate),
                          jnp.where(jnp.all(jnp.isfinite(values)), code(Status.ok),
                                    code(Status.nonfinite)))
         accepted = status == int(Status.ok)
         step = state.step + accepted.astype(jnp.int32)
         refresh = accepted & (ps.multiplier_every > 0) & (
             step % max(ps.multiplier_every, 1) == 0)
+        multipliers = jnp.where(refresh, state.multipliers + ps.weight * r, state.multipliers)
+        # the pending update uses the refreshed multipliers; the backward pass runs once
+        value = loss_of(r, objective, multipliers)
+        grad = pullback((ps.weight * r + multipliers, -ps.move_weight * jnp.ones_like(objective)))[0]
+        value_fn = lambda p: loss_of(*forward(ctx, p, states)[0], multipliers)  # noqa: E731
+        updates, opt_state = tx.update(grad, state.opt_state, candidate, value=value, grad=grad,
+                                       value_fn=value_fn)
+        accepted = accepted & jnp.all(jnp.isfinite(updates))
         pick = lambda a, b: jax.tree_util.tree_map(  # noqa: E731
             lambda u, v: jnp.where(accepted, u, v), a, b)
         new_state = SearchState(
-            step=step, params=pick(x_new, x), key=state.key, tangent=pick(updates, state.tangent),
+            step=state.step + accepted.astype(jnp.int32), params=pick(candidate, x),
+            key=state.key, tangent=pick(updates, state.tangent),
             step_size=jnp.where(accepted, jnp.minimum(1.0, state.step_size * 1.5),
                                 state.step_size * 0.5),
             rejections=jnp.where(accepted, 0, state.rejections + 1),
-            multipliers=jnp.where(refresh, state.multipliers + ps.weight * r, state.multipliers),
+            multipliers=pick(multipliers, state.multipliers),
             opt_state=pick(opt_state, state.opt_state),
             evaluator_states=pick(states_new, states))
-        info = StepInfo(accepted, status, codes, x_new, values, r, residual,
-                        _move_quantity(problem, ctx, x_new, values), jnp.asarray(jnp.nan),
-                        state.step_size * jnp.linalg.norm(updates),
+        status = jnp.where(accepted | (status != int(Status.ok)), status, code(Status.nonfinite))
+        info = StepInfo(accepted, status, codes, candidate, values, r, residual,
+                        _move_quantity(problem, ctx, candidate, values), jnp.asarray(jnp.nan),
+                        state.step_size * jnp.linalg.norm(state.tangent),
                         jnp.asarray(1, jnp.int32), jnp.asarray(-1, jnp.int32))
         return new_state, info
 
@@ -456,6 +481,8 @@ def make_penalty(problem: Problem, spec: SearchSpec):
 
 
 MODES: dict[str, Callable] = {"continuation": make_continuation, "penalty": make_penalty}
+PRIMING_CALLS = {"continuation": 0, "penalty": 1}
+"""Calls of ``update`` that :func:`prepare` makes before step 1 (penalty: evaluate the start)."""
 
 
 # --------------------------------------------------------------------------- set-up
@@ -483,7 +510,7 @@ def named_keys(seed: int, names: tuple[str, ...]) -> dict[str, jax.Array]:
 def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian."""
     curve = problem.curve(jnp.asarray(problem.start))
-    states = tuple(ev.init(curve) for ev in problem.evaluators)
+    states = registry.init_families(problem.evaluators, curve)
     values, J, states, codes = jax.jit(lambda x, s: _linearized(problem, x, s))(
         jnp.asarray(problem.start), states)
     values = np.asarray(values)
@@ -499,8 +526,10 @@ def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     init, update = MODES[spec.mode](problem, spec)
     key = named_keys(spec.seed, ("search",))["search"]
     state = _strongly_typed(init(ctx, key, states))
-    return Prepared(problem, ctx, state, jax.jit(_same_types(update)), values,
-                    np.asarray(codes), rank, sv)
+    update = jax.jit(_same_types(update))
+    for _ in range(PRIMING_CALLS[spec.mode]):
+        state = update(ctx, state)[0]._replace(step=state.step, rejections=state.rejections)
+    return Prepared(problem, ctx, state, update, values, np.asarray(codes), rank, sv)
 
 
 def _strongly_typed(tree):
@@ -572,12 +601,17 @@ def evaluator_data(problem: Problem, state: SearchState) -> dict[str, np.ndarray
 def recheck(problem: Problem, state: SearchState) -> tuple[SearchState, list[tuple[str, Status]]]:
     """Run the evaluators' ``recheck`` hooks on the current shape (outside jit)."""
     curve = problem.curve(state.params)
-    new_states, reports = [], []
+    new_states, reports, done = [], [], {}
     for name, ev, st in zip(problem.names, problem.evaluators, state.evaluator_states):
         if ev.recheck is None:
             new_states.append(st)
             continue
-        st, status = ev.recheck(curve, st)
+        key = None if ev.shared is None else ev.shared.key
+        if key is None or key not in done:
+            result = ev.recheck(curve, st)
+            if key is not None:
+                done[key] = result
+        st, status = result if key is None else done[key]
         new_states.append(st)
         reports.append((name, Status(int(status))))
     return state._replace(evaluator_states=tuple(new_states)), reports
