@@ -151,21 +151,30 @@ def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
     Numpy, outside jit (cold path and reports): the Hessian of the m-fold orbit has size m·q.
     ``jets`` are the (γ, γ', γ'') at the q bounces.
     """
-    pts, vel, acc = (np.asarray(a)[:q] for a in jets)
+    a, b, c = _second_derivatives_np(tuple(np.asarray(x)[:q] for x in jets))
     out = []
     for m in range(1, iterates + 1):
         n = m * q
-        idx = np.arange(n) % q
-        hess = _arclength_hessian_np((pts[idx], vel[idx], acc[idx]), n)
+        # The m-fold orbit repeats the q chords: cyclic Hessian, diagonal a_i + c_{i−1},
+        # b_i between i and i+1 (the two chords add when n = 2).
+        a_m, b_m, c_m = np.tile(a, m), np.tile(b, m), np.tile(c, m)
+        hess = np.diag(a_m + np.roll(c_m, 1))
+        idx = np.arange(n)
+        if n == 2:
+            hess[0, 1] = hess[1, 0] = b_m[0] + b_m[1]
+        else:
+            hess[idx, (idx + 1) % n] = b_m
+            hess[(idx + 1) % n, idx] = b_m
         lam = np.linalg.eigvalsh(hess)
         scale = np.max(np.abs(lam)) + 1.0
         out.append(int(np.sum(lam < -DEGENERATE_TOL * scale)))
     return np.asarray(out, dtype=np.int32)
 
 
-def _arclength_hessian_np(jets, n):
+def _second_derivatives_np(jets):
+    """(a, b, c) of each chord of the closed polygon through the jets' points (numpy)."""
     pts, vel, acc = (np.asarray(a) for a in jets)
-    nxt = (np.arange(n) + 1) % n
+    nxt = (np.arange(pts.shape[0]) + 1) % pts.shape[0]
     d = pts[nxt] - pts
     h = np.linalg.norm(d, axis=1)
     u = d / h[:, None]
@@ -174,16 +183,8 @@ def _arclength_hessian_np(jets, n):
     kappa = (vel[:, 0] * acc[:, 1] - vel[:, 1] * acc[:, 0]) / speed**3
     sin_out = tan[:, 0] * u[:, 1] - tan[:, 1] * u[:, 0]
     sin_in = u[:, 0] * tan[nxt, 1] - u[:, 1] * tan[nxt, 0]
-    a = sin_out**2 / h - kappa * sin_out
-    c = sin_in**2 / h - kappa[nxt] * sin_in
-    b = sin_out * sin_in / h
-    hess = np.zeros((n, n))
-    idx = np.arange(n)
-    np.add.at(hess, (idx, idx), a)
-    np.add.at(hess, (nxt, nxt), c)
-    np.add.at(hess, (idx, nxt), b)
-    np.add.at(hess, (nxt, idx), b)
-    return hess
+    return (sin_out**2 / h - kappa * sin_out, sin_out * sin_in / h,
+            sin_in**2 / h - kappa[nxt] * sin_in)
 
 
 def _power_traces(mono, iterates):
@@ -386,13 +387,21 @@ def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, Birk
     Step j: V_j[s, a] = max_k V_{j−1}[s, a − k] + h(s + a − k, k) over k = 1..n−1, evaluated as
     one strided (s, k, a) sum reduced over k (no back-pointers: paths are traced afterwards).
     """
+    return _birkhoff_table(_chord_table(points, p), p, q)
+
+
+def _chord_table(points: np.ndarray, max_p: int) -> np.ndarray:
+    """chords[k − 1, x] = |γ_{x+k} − γ_x| for x = 0 .. (2 + max_p)n − 1 (indices mod n); serves
+    every rotation number p/q with p ≤ max_p on this grid."""
     n = points.shape[0]
-    target = p * n
     dist = np.linalg.norm(points[None, :, :] - points[:, None, :], axis=-1)
-    ks = np.arange(1, n)
-    # chords[k − 1, x] = |γ_{x+k} − γ_x| for x = 0 .. 2n + pn (indices mod n).
-    x = np.arange(2 * n + target)
-    chords = np.ascontiguousarray(dist[x[None, :] % n, (x[None, :] + ks[:, None]) % n])
+    x = np.arange((2 + max_p) * n)
+    return np.ascontiguousarray(dist[x[None, :] % n, (x[None, :] + np.arange(1, n)[:, None]) % n])
+
+
+def _birkhoff_table(chords: np.ndarray, p: int, q: int) -> tuple[np.ndarray, BirkhoffTables]:
+    n = chords.shape[0] + 1
+    target = p * n
     c0, c1 = chords.strides
     # Views: gain[s, k − 1, a] = chords[k − 1, s + a − k + n], shifted[s, k − 1, a] =
     # V[s, a − k] = padded[s, n − 1 + a − k] (−inf for a < k).
@@ -420,13 +429,22 @@ def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, Birk
 def birkhoff_path(back: BirkhoffTables, start: int, p: int, n: int) -> np.ndarray:
     """Grid indices of the optimal path from ``start`` (q entries, cyclically ordered); ties go
     to the shortest last chord."""
-    advance, out = p * n, []
+    return birkhoff_paths(back, np.asarray([start]), p, n)[0]
+
+
+def birkhoff_paths(back: BirkhoffTables, starts: np.ndarray, p: int, n: int) -> np.ndarray:
+    """:func:`birkhoff_path` for every start at once, shape (len(starts), q)."""
+    starts = np.asarray(starts, dtype=int)
+    advance = np.full(starts.shape, p * n)
+    k = np.arange(1, n)
+    out = []
     for previous in reversed(back.values[:-1]):
-        k = np.arange(1, min(n - 1, advance) + 1)
-        gains = previous[start, advance - k] + back.chords[k - 1, start + advance - k + n]
-        advance -= int(k[np.argmax(gains)])
-        out.append((start + advance) % n)
-    return np.asarray(out[::-1])
+        before = advance[:, None] - k[None, :]
+        gains = np.where(before >= 0, previous[starts[:, None], np.maximum(before, 0)]
+                         + back.chords[k[None, :] - 1, starts[:, None] + before + n], -np.inf)
+        advance = advance - k[np.argmax(gains, axis=1)]
+        out.append((starts + advance) % n)
+    return np.stack(out[::-1], axis=1)
 
 
 def _local_extrema(values: np.ndarray, maxima: bool) -> np.ndarray:
@@ -441,8 +459,7 @@ def _distinct_paths(back, starts, p, n, count, separation=1):
     a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
     an already kept path is a grid variant of it."""
     kept, paths = [], []
-    for s in starts:
-        path = birkhoff_path(back, int(s), p, n)
+    for path in birkhoff_paths(back, starts, p, n):
         gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
         if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
             continue
@@ -517,9 +534,12 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
         # At least ~5 grid points per bounce, so long orbits keep resolved seeds.
         n = refine * max(grid, int(16 * np.ceil(5 * q / 16)))
         if n not in grids:
-            grids[n] = boundary_grid(curve, n)
-        t_grid, points = grids[n]
-        table, back = birkhoff_table(points, p, q)
+            t_grid, points = boundary_grid(curve, n)
+            max_p = max(pp for pp, qq in rotation_numbers(max_period)
+                        if refine * max(grid, int(16 * np.ceil(5 * qq / 16))) == n)
+            grids[n] = t_grid, _chord_table(points, max_p)
+        t_grid, chords = grids[n]
+        table, back = _birkhoff_table(chords, p, q)
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
             if only is not None and (p, q, branch) not in only:
                 continue
@@ -575,7 +595,9 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
 
     The Newton loop runs in fixed-size chunks over phases of increasing step caps, each phase
     only on the seeds still moving: a vmapped loop runs until its slowest seed stops, so one
-    slow seed would otherwise hold a whole batch for every step (results are the same)."""
+    slow seed would otherwise hold a whole batch for every step. After each phase, seeds that
+    have reached the same configuration (to 10⁻⁶, i.e. already in one Newton basin) continue
+    as one."""
     count = len(t_seeds)
     t = np.zeros((count, slots))
     for k, ts in enumerate(t_seeds):
@@ -585,19 +607,21 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     targets = np.asarray(targets, dtype=np.int32)
     taken = np.zeros(count, dtype=np.int32)
     last = np.full(count, np.inf)
-    moving = np.arange(count)
-    for cap in tuple(c for c in NEWTON_PHASES if c < steps) + (steps,):
-        for idx in _chunks(moving):
+    moving = rep = np.arange(count)
+    for cap, size in tuple((c, k) for c, k in NEWTON_PHASES if c < steps) + ((steps, TAIL_CHUNK),):
+        for idx in _chunks(moving, size):
             out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
                                 cap, max_step)
             taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
-        moving = moving[(taken[moving] < steps) & (last[moving] > NEWTON_TOL)]
+        rep = _representatives(t, qs, targets, np.unique(rep), MERGE_DECIMALS)[rep]
+        moving = moving[(rep[moving] == moving) & (taken[moving] < steps)
+                        & (last[moving] > NEWTON_TOL)]
         if moving.size == 0:
             break
-    rep = _representatives(t, qs, targets)
+    rep = _representatives(t, qs, targets, np.unique(rep))[rep]
     distinct = np.unique(rep)
     data = [_data_batch(curve, t[idx], qs[idx], iterates, resonance_order)
-            for idx in _chunks(distinct)]
+            for idx in _chunks(distinct, SOLVE_CHUNK)]
     data = jax.tree_util.tree_map(lambda *xs: np.concatenate([np.asarray(x) for x in xs]), *data)
     # Chunks are padded: entry j of ``data`` belongs to seed distinct[j].
     where = np.zeros(count, dtype=int)
@@ -605,28 +629,41 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     return data, where[rep], rep == np.arange(count)
 
 
-SOLVE_CHUNK = 32
-"""Seeds per compiled Newton batch (fixed, so one compilation serves every call; on this CPU a
-batch of 32 costs less per seed than 8 or 128)."""
-NEWTON_PHASES = (7, 10, 16)
-"""Step caps after which still-moving seeds are regrouped (most seeds stop after 5-9 steps)."""
+SOLVE_CHUNK, TAIL_CHUNK = 32, 8
+"""Seeds per compiled batch (two fixed sizes, so two compilations serve every call): on this
+CPU a batch of 32 costs less per seed than 8 or 128, and 8 costs less per step than 32."""
+NEWTON_PHASES = ((4, SOLVE_CHUNK), (7, SOLVE_CHUNK), (10, SOLVE_CHUNK), (16, TAIL_CHUNK))
+"""(step cap, batch size): after each cap the seeds still moving are regrouped. Most seeds stop
+after 5-9 steps; the few left after 16 rarely converge at all (sliding along the table)."""
 
 
-def _chunks(index: np.ndarray):
-    """Index arrays of at most SOLVE_CHUNK entries, padded to SOLVE_CHUNK by repeating the first
-    entry (a repeated seed takes no extra steps and its results are written twice, identically)."""
-    for lo in range(0, index.size, SOLVE_CHUNK):
-        part = index[lo:lo + SOLVE_CHUNK]
-        yield np.concatenate([part, np.full(SOLVE_CHUNK - part.size, part[0])])
+def _chunks(index: np.ndarray, size: int):
+    """Index arrays of at most ``size`` entries, padded to ``size`` by repeating the first entry
+    (a repeated seed takes no extra steps and its results are written twice, identically)."""
+    for lo in range(0, index.size, size):
+        part = index[lo:lo + size]
+        yield np.concatenate([part, np.full(size - part.size, part[0])])
 
 
-def _representatives(t, qs, targets, decimals=8):
-    """For each configuration the first one with the same q, target and bounce set (mod 2π,
-    rounded to ``decimals``); unequal roundings only cost a duplicate, never a merge."""
-    first, rep = {}, np.arange(len(qs))
-    for k, (q, target) in enumerate(zip(qs, targets)):
-        bounces = np.round(np.sort(np.mod(t[k, :q], 2 * np.pi)), decimals)
-        rep[k] = first.setdefault((int(q), int(target), bounces.tobytes()), k)
+MERGE_DECIMALS = 6
+"""Seeds still moving whose bounces agree to this many decimals continue as one."""
+
+
+def _representatives(t, qs, targets, among, decimals=8):
+    """For each configuration in ``among`` the first one there with the same q, target and
+    bounce set (mod 2π, rounded to ``decimals``); every other index maps to itself. Unequal
+    roundings of nearly equal configurations only cost a duplicate."""
+    rep = np.arange(len(qs))
+    among = np.asarray(among)
+    slots = np.arange(t.shape[1])
+    # Unused slots become +inf so they sort last and compare equal.
+    bounces = np.sort(np.where(slots[None, :] < qs[among, None], np.mod(t[among], 2 * np.pi),
+                               np.inf), axis=1)
+    keys = np.concatenate([qs[among, None], targets[among, None],
+                           np.round(bounces, decimals)], axis=1)
+    first = {}
+    for k, key in zip(among, keys):
+        rep[k] = first.setdefault(key.tobytes(), k)
     return rep
 
 
