@@ -324,9 +324,10 @@ def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON
 
 @jax.jit
 def _newton_batch(curve, t, q, target, count, last, steps, max_step):
-    """:func:`_newton_resume` over a batch of seeds (``steps`` is traced: one compilation)."""
-    return jax.vmap(lambda *a: _newton_resume(curve, *a, steps, max_step))(t, q, target, count,
-                                                                           last)
+    """:func:`_newton_resume` over a batch of seeds, each with its own step clip ``max_step``
+    (``steps`` is traced: one compilation)."""
+    return jax.vmap(lambda t, q, target, count, last, max_step: _newton_resume(
+        curve, t, q, target, count, last, steps, max_step))(t, q, target, count, last, max_step)
 
 
 @partial(jax.jit, static_argnames=("iterates", "resonance_order"))
@@ -611,7 +612,7 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     for cap, size in tuple((c, k) for c, k in NEWTON_PHASES if c < steps) + ((steps, TAIL_CHUNK),):
         for idx in _chunks(moving, size):
             out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
-                                cap, max_step)
+                                cap, max_step[idx])
             taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
         rep = _representatives(t, qs, targets, np.unique(rep), MERGE_DECIMALS)[rep]
         moving = moving[(rep[moving] == moving) & (taken[moving] < steps)
@@ -701,9 +702,14 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
                     resonance_order=resonance_order, steps=newton_steps, polygon=polygon)
     rows = []
 
-    # Birkhoff orbits.
+    # Birkhoff orbits and bouncing balls (all sign-change cells of the two end cosines on a torus
+    # grid) in one solve: the few seeds that never settle then share one tail batch.
     seeds = _seed_batch(curve, max_period, grid, candidates)
-    solved = solve(seeds, max_step=2 * np.pi / grid)
+    bouncing = [(1, 2, CRITICAL, t) for t in _torus_candidates(curve, bouncing_grid)[:512]]
+    solved = solve(seeds + bouncing, max_step=np.repeat(
+        [2 * np.pi / grid, 2 * np.pi / bouncing_grid], [len(seeds), len(bouncing)]))
+    bouncing = [r for r in solved if r["branch"] == CRITICAL]
+    solved = [r for r in solved if r["branch"] != CRITICAL]
     picked = {}
     for p, q in rotation_numbers(max_period):
         for branch in (MAX, MINIMAX):
@@ -716,14 +722,13 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
         if not failed or refine * grid > MAX_RESEED_GRID:
             break
         seeds = _seed_batch(curve, max_period, grid, candidates, only=failed, refine=refine)
-        solved += solve(seeds, max_step=2 * np.pi / (refine * grid))
+        solved += solve(seeds, max_step=np.full(len(seeds), 2 * np.pi / (refine * grid)))
         for key in failed:
             group = [r for r in solved if (r["p"], r["q"], r["branch"]) == key]
             picked[key] = _pick(group, key[2])
     rows.extend(picked.values())
 
-    # Bouncing balls.
-    for row in _bouncing_balls(curve, bouncing_grid, solve):
+    for row in _bouncing_balls(bouncing):
         same_family = lambda r: (r["degenerate"] and row["degenerate"]  # noqa: E731
                                  and abs(r["length"] - row["length"]) < 1e-9 * row["length"])
         if not any(r["q"] == 2 and (_same_orbit(r, row) or same_family(r)) for r in rows):
@@ -789,11 +794,8 @@ def _polygon_convex(curve, n):
     return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
 
 
-def _bouncing_balls(curve, n, solve):
-    seeds = _torus_candidates(curve, n)
-    if len(seeds) == 0:
-        return []
-    solved = solve([(1, 2, CRITICAL, t) for t in seeds[:512]], max_step=2 * np.pi / n)
+def _bouncing_balls(solved):
+    """The distinct converged bouncing balls among refined torus-grid seeds, longest first."""
     rows = []
     for row in solved:
         if row["status"] in (Status.orbit_not_converged, Status.nonfinite):
