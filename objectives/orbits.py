@@ -295,14 +295,19 @@ def _newton(curve, t, q, steps, max_step, target=-1, tol=NEWTON_TOL):
     return jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
 
 
-def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON_TOL):
+def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON_TOL,
+                   horizon=None):
     """The loop of :func:`_newton` continued from ``count`` steps taken and ``last`` step size:
-    (steps taken, t, last step size). Stopping and resuming gives the same iterates as one run."""
+    (steps taken, t, last step size). Stopping and resuming gives the same iterates as one run.
+
+    With ``horizon`` (the step budget of the whole run) an exact 2-cycle, t_{k+1} = t_{k−1}
+    bitwise, ends the loop at once with the state the run would reach after ``horizon`` steps:
+    the iteration depends on t alone, so it alternates between the two points forever (clipped
+    steps that flip sign on a seed that cannot settle)."""
     size = t.shape[0]
     rank = jnp.arange(size)
 
-    def body(state):
-        i, t, _ = state
+    def step(t):
         grad, hess = _grad_hess(curve, t, q)
         lam, vec = jnp.linalg.eigh(hess)
         # Padded slots have the lowest eigenvalues and zero gradient; they never matter.
@@ -311,23 +316,42 @@ def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON
                                      jnp.sign(lam)))
         eps = 1e-10 * jnp.max(jnp.abs(lam))
         delta = -(vec * (1.0 / (wanted * (jnp.abs(lam) + eps)))) @ (vec.T @ grad)
-        delta = jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
-        return i + 1, t + delta, jnp.max(jnp.abs(delta))
+        return jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
 
     def going(state):
-        i, _, size = state
+        i, size = state[0], state[2]
         return (i < steps) & (size > tol)
 
-    return jax.lax.while_loop(going, body, (jnp.asarray(count, jnp.int32), t,
-                                            jnp.asarray(last, t.dtype)))
+    start = (jnp.asarray(count, jnp.int32), t, jnp.asarray(last, t.dtype))
+    if horizon is None:
+        def body(state):
+            i, t, _ = state
+            delta = step(t)
+            return i + 1, t + delta, jnp.max(jnp.abs(delta))
+
+        return jax.lax.while_loop(going, body, start)
+
+    def body_cycles(state):
+        i, t, _, before = state
+        delta = step(t)
+        new = t + delta
+        cycle = jnp.all(new == before)
+        even = (horizon - (i + 1)) % 2 == 0
+        return (jnp.where(cycle, horizon, i + 1), jnp.where(cycle & ~even, t, new),
+                jnp.max(jnp.abs(delta)), t)
+
+    # ``before`` starts as NaN: no cycle can be recognised on the first step of a call.
+    i, t, last, _ = jax.lax.while_loop(going, body_cycles, start + (jnp.full_like(t, jnp.nan),))
+    return i, t, last
 
 
 @jax.jit
-def _newton_batch(curve, t, q, target, count, last, steps, max_step):
+def _newton_batch(curve, t, q, target, count, last, steps, max_step, horizon):
     """:func:`_newton_resume` over a batch of seeds, each with its own step clip ``max_step``
-    (``steps`` is traced: one compilation)."""
+    (``steps`` and ``horizon`` are traced: one compilation)."""
     return jax.vmap(lambda t, q, target, count, last, max_step: _newton_resume(
-        curve, t, q, target, count, last, steps, max_step))(t, q, target, count, last, max_step)
+        curve, t, q, target, count, last, steps, max_step, horizon=horizon))(
+            t, q, target, count, last, max_step)
 
 
 @partial(jax.jit, static_argnames=("iterates", "resonance_order"))
@@ -612,7 +636,7 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     for cap, size in tuple((c, k) for c, k in NEWTON_PHASES if c < steps) + ((steps, TAIL_CHUNK),):
         for idx in _chunks(moving, size):
             out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
-                                cap, max_step[idx])
+                                cap, max_step[idx], steps)
             taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
         rep = _representatives(t, qs, targets, np.unique(rep), MERGE_DECIMALS)[rep]
         moving = moving[(rep[moving] == moving) & (taken[moving] < steps)
