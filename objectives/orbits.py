@@ -412,7 +412,8 @@ def birkhoff_table(points: np.ndarray, p: int, q: int) -> tuple[np.ndarray, Birk
     Step j: V_j[s, a] = max_k V_{j−1}[s, a − k] + h(s + a − k, k) over k = 1..n−1, evaluated as
     one strided (s, k, a) sum reduced over k (no back-pointers: paths are traced afterwards).
     """
-    return _birkhoff_table(_chord_table(points, p), p, q)
+    chords = _chord_table(points, p)
+    return _birkhoff_tables(chords, [(p, q)])[(p, q)]
 
 
 def _chord_table(points: np.ndarray, max_p: int) -> np.ndarray:
@@ -424,20 +425,25 @@ def _chord_table(points: np.ndarray, max_p: int) -> np.ndarray:
     return np.ascontiguousarray(dist[x[None, :] % n, (x[None, :] + np.arange(1, n)[:, None]) % n])
 
 
-def _birkhoff_table(chords: np.ndarray, p: int, q: int) -> tuple[np.ndarray, BirkhoffTables]:
+def _birkhoff_tables(chords: np.ndarray, rotations) -> dict:
+    """{(p, q): (B, tables)} for every rotation number on one grid from ONE dynamic programme:
+    V_j[s, a] does not depend on p or q, so the q-th table read at advance pn is B for p/q."""
     n = chords.shape[0] + 1
-    target = p * n
+    top = max(p for p, _ in rotations) * n
     c0, c1 = chords.strides
     # Views: gain[s, k − 1, a] = chords[k − 1, s + a − k + n], shifted[s, k − 1, a] =
     # V[s, a − k] = padded[s, n − 1 + a − k] (−inf for a < k).
-    padded = np.full((n, n - 1 + target + 1), -np.inf)
+    padded = np.full((n, n - 1 + top + 1), -np.inf)
     padded[:, n - 1] = 0.0
     p0, p1 = padded.strides
-    buffer = np.empty((n, n - 1, target + 1))
+    buffer = np.empty((n, n - 1, top + 1))
     values = [padded[:, n - 1:].copy()]
-    for j in range(1, q + 1):
-        # Only advances reachable in j chords from which q − j more can still close the path.
-        lo, hi = max(j, target - (q - j) * (n - 1)), min(j * (n - 1), target)
+    for j in range(1, max(q for _, q in rotations) + 1):
+        # Only advances reachable in j chords from which the remaining chords of some served
+        # rotation number can still close its path (other entries are never read).
+        open_ = [(p, q) for p, q in rotations if q >= j]
+        lo = max(j, min(p * n - (q - j) * (n - 1) for p, q in open_))
+        hi = min(j * (n - 1), max(p * n for p, _ in open_))
         width = hi - lo + 1
         shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
                              strides=(p0, -p1, p1), writeable=False)
@@ -448,7 +454,8 @@ def _birkhoff_table(chords: np.ndarray, p: int, q: int) -> tuple[np.ndarray, Bir
         padded[:, n - 1:] = -np.inf
         padded[:, n - 1 + lo:n + hi] = best
         values.append(padded[:, n - 1:].copy())
-    return values[-1][:, target], BirkhoffTables(values, chords)
+    return {(p, q): (values[q][:, p * n], BirkhoffTables(values[:q + 1], chords))
+            for p, q in rotations}
 
 
 def birkhoff_path(back: BirkhoffTables, start: int, p: int, n: int) -> np.ndarray:
@@ -551,20 +558,22 @@ def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> b
 def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
     """Seeds (p, q, branch, lifted t) from the max-plus search for every rotation number (or the
     (p, q, branch) keys in ``only``), on a grid ``refine`` times the default."""
-    grids = {}
+    wanted = [(p, q) for p, q in rotation_numbers(max_period)
+              if only is None or any(key[:2] == (p, q) for key in only)]
+    # At least ~5 grid points per bounce, so long orbits keep resolved seeds; the rotation
+    # numbers sharing a grid share one dynamic programme.
+    size = {(p, q): refine * max(grid, int(16 * np.ceil(5 * q / 16))) for p, q in wanted}
+    grids, tables = {}, {}
+    for n in sorted(set(size.values())):
+        served = [key for key in wanted if size[key] == n]
+        t_grid, points = boundary_grid(curve, n)
+        grids[n] = t_grid
+        tables.update(_birkhoff_tables(_chord_table(points, max(p for p, _ in served)), served))
     seeds = []
-    for p, q in rotation_numbers(max_period):
-        if only is not None and not any(key[:2] == (p, q) for key in only):
-            continue
-        # At least ~5 grid points per bounce, so long orbits keep resolved seeds.
-        n = refine * max(grid, int(16 * np.ceil(5 * q / 16)))
-        if n not in grids:
-            t_grid, points = boundary_grid(curve, n)
-            max_p = max(pp for pp, qq in rotation_numbers(max_period)
-                        if refine * max(grid, int(16 * np.ceil(5 * qq / 16))) == n)
-            grids[n] = t_grid, _chord_table(points, max_p)
-        t_grid, chords = grids[n]
-        table, back = _birkhoff_table(chords, p, q)
+    for p, q in wanted:
+        n = size[(p, q)]
+        t_grid = grids[n]
+        table, back = tables[(p, q)]
         for branch, maxima in ((MAX, True), (MINIMAX, False)):
             if only is not None and (p, q, branch) not in only:
                 continue
