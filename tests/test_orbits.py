@@ -282,6 +282,42 @@ def test_class_hypotheses_on_a_generic_shape(egg_orbits):
     assert check.nondegenerate[0] and check.third_derivative[0] and check.simple_length[0]
 
 
+def test_birkhoff_tables_equal_exhaustive_enumeration():
+    # Max-plus dynamic programming against brute force (Bellman's principle of optimality; common
+    # practice): on a 10-point grid of a convex curve, B[s] for p/q is the largest sum of q chord
+    # lengths over every composition of the advance p·n into q steps of 1..n−1 points, and the
+    # traced optimal path attains it. One programme serving several p/q must give the same.
+    from itertools import product
+
+    rng = np.random.default_rng(20261203)
+    n = 10
+    theta = np.sort(rng.uniform(0, 2 * np.pi, n))
+    radius = 1.0 + 0.15 * np.cos(2 * theta) + 0.05 * np.sin(3 * theta)
+    points = np.stack([radius * np.cos(theta), radius * np.sin(theta)], axis=1)
+    rotations = [(1, 2), (1, 3), (1, 4), (1, 5), (2, 5)]
+    shared = orb._birkhoff_tables(orb._chord_table(points, 2), rotations)
+    for p, q in rotations:
+        table, back = orb.birkhoff_table(points, p, q)
+        np.testing.assert_array_equal(table, shared[(p, q)][0])
+        paths = orb.birkhoff_paths(back, np.arange(n), p, n)
+        for start in range(n):
+            best = -np.inf
+            for steps in product(range(1, n), repeat=q - 1):
+                last = p * n - sum(steps)
+                if 1 <= last <= n - 1:
+                    idx = (start + np.cumsum((0,) + steps)) % n
+                    best = max(best, sum(np.linalg.norm(points[idx[(i + 1) % q]] - points[idx[i]])
+                                         for i in range(q)))
+            assert abs(table[start] - best) < 1e-12, (p, q, start, table[start], best)
+            path = paths[start]
+            assert path[0] == start
+            advance = np.mod(np.diff(np.append(path, path[0])), n)
+            assert np.sum(np.where(advance == 0, n, advance)) == p * n
+            traced = sum(np.linalg.norm(points[path[(i + 1) % q]] - points[path[i]])
+                         for i in range(q))
+            assert abs(traced - best) < 1e-12
+
+
 def test_robust_against_a_four_times_finer_global_search():
     # Seeded random shapes whose curvature stays above 0.6 of the circle's: the default search
     # and one on a 4× finer grid find the same max and min-max orbits (common practice).
