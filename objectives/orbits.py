@@ -151,40 +151,48 @@ def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
     Numpy, outside jit (cold path and reports): the Hessian of the m-fold orbit has size m·q.
     ``jets`` are the (γ, γ', γ'') at the q bounces.
     """
-    a, b, c = _second_derivatives_np(tuple(np.asarray(x)[:q] for x in jets))
-    out = []
+    return _maslov_batch(tuple(np.asarray(x)[None, :q] for x in jets), iterates)[0]
+
+
+def _maslov_batch(jets, iterates: int) -> np.ndarray:
+    """:func:`iterate_maslov` for K orbits of one period q at once: jets of shape (K, q, 2)."""
+    a, b, c = _second_derivatives_np(jets)
+    count, q = a.shape
+    out = np.zeros((count, iterates), dtype=np.int32)
     for m in range(1, iterates + 1):
         n = m * q
         # The m-fold orbit repeats the q chords: cyclic Hessian, diagonal a_i + c_{i−1},
         # b_i between i and i+1 (the two chords add when n = 2).
         a_m, b_m, c_m = np.tile(a, m), np.tile(b, m), np.tile(c, m)
-        hess = np.diag(a_m + np.roll(c_m, 1))
         idx = np.arange(n)
+        hess = np.zeros((count, n, n))
+        hess[:, idx, idx] = a_m + np.roll(c_m, 1, axis=1)
         if n == 2:
-            hess[0, 1] = hess[1, 0] = b_m[0] + b_m[1]
+            hess[:, 0, 1] = hess[:, 1, 0] = b_m[:, 0] + b_m[:, 1]
         else:
-            hess[idx, (idx + 1) % n] = b_m
-            hess[(idx + 1) % n, idx] = b_m
+            hess[:, idx, (idx + 1) % n] = b_m
+            hess[:, (idx + 1) % n, idx] = b_m
         lam = np.linalg.eigvalsh(hess)
-        scale = np.max(np.abs(lam)) + 1.0
-        out.append(int(np.sum(lam < -DEGENERATE_TOL * scale)))
-    return np.asarray(out, dtype=np.int32)
+        scale = np.max(np.abs(lam), axis=1, keepdims=True) + 1.0
+        out[:, m - 1] = np.sum(lam < -DEGENERATE_TOL * scale, axis=1)
+    return out
 
 
 def _second_derivatives_np(jets):
-    """(a, b, c) of each chord of the closed polygon through the jets' points (numpy)."""
+    """(a, b, c) of each chord of the closed polygons through the jets' points (numpy; arrays
+    of shape (..., q, 2) give (..., q))."""
     pts, vel, acc = (np.asarray(a) for a in jets)
-    nxt = (np.arange(pts.shape[0]) + 1) % pts.shape[0]
-    d = pts[nxt] - pts
-    h = np.linalg.norm(d, axis=1)
-    u = d / h[:, None]
-    speed = np.linalg.norm(vel, axis=1)
-    tan = vel / speed[:, None]
-    kappa = (vel[:, 0] * acc[:, 1] - vel[:, 1] * acc[:, 0]) / speed**3
-    sin_out = tan[:, 0] * u[:, 1] - tan[:, 1] * u[:, 0]
-    sin_in = u[:, 0] * tan[nxt, 1] - u[:, 1] * tan[nxt, 0]
+    nxt = (np.arange(pts.shape[-2]) + 1) % pts.shape[-2]
+    d = pts[..., nxt, :] - pts
+    h = np.linalg.norm(d, axis=-1)
+    u = d / h[..., None]
+    speed = np.linalg.norm(vel, axis=-1)
+    tan = vel / speed[..., None]
+    kappa = (vel[..., 0] * acc[..., 1] - vel[..., 1] * acc[..., 0]) / speed**3
+    sin_out = tan[..., 0] * u[..., 1] - tan[..., 1] * u[..., 0]
+    sin_in = u[..., 0] * tan[..., nxt, 1] - u[..., 1] * tan[..., nxt, 0]
     return (sin_out**2 / h - kappa * sin_out, sin_out * sin_in / h,
-            sin_in**2 / h - kappa[nxt] * sin_in)
+            sin_in**2 / h - kappa[..., nxt] * sin_in)
 
 
 def _power_traces(mono, iterates):
@@ -491,7 +499,9 @@ def _distinct_paths(back, starts, p, n, count, separation=1):
     a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
     an already kept path is a grid variant of it."""
     kept, paths = [], []
-    for path in birkhoff_paths(back, starts, p, n):
+    # Traced in blocks: usually the first few starts already give ``count`` distinct paths.
+    for path in (path for lo in range(0, len(starts), 8)
+                 for path in birkhoff_paths(back, starts[lo:lo + 8], p, n)):
         gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
         if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
             continue
@@ -846,8 +856,11 @@ def _bouncing_balls(solved):
 
 
 def _to_set(rows, iterates) -> OrbitSet:
-    for r in rows:
-        r["maslov"] = iterate_maslov(r["jets"], r["q"], iterates)
+    for q in sorted({r["q"] for r in rows}):
+        group = [r for r in rows if r["q"] == q]
+        jets = tuple(np.stack([np.asarray(r["jets"][i])[:q] for r in group]) for i in range(3))
+        for r, maslov in zip(group, _maslov_batch(jets, iterates)):
+            r["maslov"] = maslov
     field = lambda name, dtype=None: np.asarray([r[name] for r in rows], dtype=dtype)  # noqa: E731
     return OrbitSet(
         p=field("p", np.int32), q=field("q", np.int32), branch=field("branch", np.int32),

@@ -32,6 +32,7 @@ from deform.families import Polar  # noqa: E402
 from objectives import orbits as orb  # noqa: E402
 from objectives.curve import Curve  # noqa: E402
 from objectives.geometry import curvature, perimeter  # noqa: E402
+from objectives.status import Status  # noqa: E402
 
 Q = 7
 
@@ -40,19 +41,32 @@ def family(modes: int) -> Polar:
     return Polar.build(1.0, modes=modes)
 
 
+def _relative_min_curvature(fam: Polar):
+    """x ↦ min κ · L/2π on 512 nodes (jitted once per family: eager evaluation was slow)."""
+
+    def value(x):
+        curve = Curve(fam.boundary, x)
+        kappa = jax.vmap(lambda s: curvature(curve, s))(jnp.linspace(0, 2 * np.pi, 512))
+        return jnp.min(kappa) * perimeter(curve) / (2 * np.pi)
+
+    return jax.jit(value)
+
+
+_CURVATURE = {}
+
+
 def random_params(fam: Polar, rng, amplitude=0.1, floor=0.6):
     """Free parameters with decaying random modes, rejection-sampled so min κ > floor·(2π/L)."""
+    check = _CURVATURE.setdefault(fam, _relative_min_curvature(fam))
     while True:
         full = np.zeros(2 * fam.modes + 1)
         full[0] = 1.0
         k = np.arange(1, fam.modes + 1)
         full[1:fam.modes + 1] = rng.normal(size=fam.modes) * amplitude / k**2.5
         full[fam.modes + 1:] = rng.normal(size=fam.modes) * amplitude / k**2.5
-        params = full[list(fam.free)]
-        curve = Curve(fam.boundary, jnp.asarray(params))
-        kappa = jax.vmap(lambda s: curvature(curve, s))(jnp.linspace(0, 2 * np.pi, 512))
-        if float(jnp.min(kappa)) * float(perimeter(curve)) / (2 * np.pi) > floor:
-            return jnp.asarray(params)
+        params = jnp.asarray(full[list(fam.free)])
+        if float(check(params)) > floor:
+            return params
 
 
 def best_of(fn, repeat=7, number=5):
@@ -132,19 +146,34 @@ def timings(modes: int, rng) -> dict:
     return out
 
 
-def robustness(count=20, seed=7) -> tuple[int, int, float]:
+def robustness(count=20, seed=7, amplitude=0.25) -> tuple[int, int, float, list[str]]:
+    """Shapes on which the default search and a 4× finer one agree on every orbit length, the
+    worst |ΔL|, and per mismatch which search found the better orbit (longer max; for a min-max,
+    the shorter one counts only if it is a converged index-1 orbit)."""
     rng = np.random.default_rng(seed)
     fam = family(16)
-    agree, worst = 0, 0.0
+    agree, worst, notes = 0, 0.0, []
     n = 2 * len(orb.rotation_numbers(Q))
-    for _ in range(count):
-        curve = Curve(fam.boundary, random_params(fam, rng, amplitude=0.25))
+    for shape in range(count):
+        curve = Curve(fam.boundary, random_params(fam, rng, amplitude=amplitude))
         coarse = orb.find_orbits(curve, Q)
         fine = orb.find_orbits(curve, Q, grid=4 * 32)
-        diff = float(np.max(np.abs(coarse.length[:n] - fine.length[:n])))
-        worst = max(worst, diff)
-        agree += diff < 1e-9
-    return agree, count, worst
+        delta = np.abs(coarse.length[:n] - fine.length[:n])
+        worst = max(worst, float(np.max(delta)))
+        agree += bool(np.all(delta < 1e-9))
+        for k in np.nonzero(delta >= 1e-9)[0]:
+            label = coarse.labels()[k]
+            ok = (Status.ok, Status.degenerate)
+            if label.endswith(",max"):
+                better = "ours" if coarse.length[k] > fine.length[k] else "finer search"
+            else:
+                ours = coarse.status[k] in ok and (fine.status[k] not in ok
+                                                   or coarse.length[k] < fine.length[k])
+                better = "ours" if ours else "finer search"
+            notes.append(f"shape {shape} {label}: ours {coarse.length[k]:.12f} (status "
+                         f"{coarse.status[k]}), finer {fine.length[k]:.12f} (status "
+                         f"{fine.status[k]}): better = {better}")
+    return agree, count, worst, notes
 
 
 COMPILE_SCRIPT = r"""
@@ -195,9 +224,13 @@ def main() -> None:
     print(f"compile in a fresh process (cold/warm/grad first-call s): {fresh}")
     print(f"same, from the persistent cache (s):                     {cached}")
     if not quick:
-        agree, count, worst = robustness()
-        print(f"robustness: {agree}/{count} random shapes agree with a 4× finer global search "
-              f"on all {2 * len(orb.rotation_numbers(Q))} orbits (worst |ΔL| = {worst:.2e})")
+        for seed in (7, 8):
+            agree, count, worst, notes = robustness(seed=seed)
+            print(f"robustness (seed {seed}, amplitude 0.25): {agree}/{count} random shapes agree "
+                  f"with a 4× finer global search on all {2 * len(orb.rotation_numbers(Q))} "
+                  f"orbits (worst |ΔL| = {worst:.2e})")
+            for note in notes:
+                print("   ", note)
 
 
 if __name__ == "__main__":
