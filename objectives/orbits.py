@@ -653,7 +653,7 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     last = np.full(count, np.inf)
     moving = rep = np.arange(count)
     for cap, size in tuple((c, k) for c, k in NEWTON_PHASES if c < steps) + ((steps, TAIL_CHUNK),):
-        for idx in _chunks(moving, size):
+        for idx in _chunks(moving, size, TAIL_CHUNK):
             out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
                                 cap, max_step[idx], steps)
             taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
@@ -681,11 +681,15 @@ NEWTON_PHASES = ((4, SOLVE_CHUNK), (7, SOLVE_CHUNK), (10, SOLVE_CHUNK), (16, TAI
 after 5-9 steps; the few left after 16 rarely converge at all (sliding along the table)."""
 
 
-def _chunks(index: np.ndarray, size: int):
-    """Index arrays of at most ``size`` entries, padded to ``size`` by repeating the first entry
-    (a repeated seed takes no extra steps and its results are written twice, identically)."""
+def _chunks(index: np.ndarray, size: int, tail: int | None = None):
+    """Index arrays of ``size`` entries, the last padded by repeating its first entry (a repeated
+    seed takes no extra steps and its results are written twice, identically). With ``tail``, a
+    remainder of at most 2·tail seeds goes in batches of ``tail`` instead (cheaper per step)."""
     for lo in range(0, index.size, size):
         part = index[lo:lo + size]
+        if tail is not None and part.size < size and tail < size and part.size <= 2 * tail:
+            yield from _chunks(part, tail)
+            return
         yield np.concatenate([part, np.full(size - part.size, part[0])])
 
 
