@@ -123,6 +123,41 @@ def build(name: str, options: dict | None = None, where: str = "keep") -> Evalua
     return family.build(**{**allowed, **options})
 
 
+def linearize_families(evaluators, curve_of: Callable[[Any], Curve], x, states):
+    """(values, ∂values/∂x, new states, per-family codes) with ``curve_of(x)`` the curve.
+
+    Each group of families that shares a warm solve (or each family alone) is differentiated
+    on its own, in reverse mode when it has fewer entries than parameters and in forward mode
+    otherwise: one reverse pass over all families would push every row's cotangent through
+    every family (measured 3-5× slower than per-group passes on a 50-value orbit/heat set).
+    """
+    groups: dict[Any, list[int]] = {}
+    for i, ev in enumerate(evaluators):
+        groups.setdefault(("alone", i) if ev.shared is None else ev.shared.key, []).append(i)
+    values, jacobians = [None] * len(evaluators), [None] * len(evaluators)
+    new_states, codes = [None] * len(evaluators), [None] * len(evaluators)
+    for members in groups.values():
+        evs = [evaluators[i] for i in members]
+        sts = [states[i] for i in members]
+
+        def group_values(p, evs=evs, sts=sts):
+            v, st, c = evaluate_families(evs, curve_of(p), sts)
+            flat = jnp.concatenate(v)
+            return flat, (v, st, c)
+
+        rows = sum(len(ev.labels) for ev in evs)
+        jacobian = jax.jacrev if rows < jnp.size(x) else jax.jacfwd
+        J, (v, st, c) = jacobian(group_values, has_aux=True)(x)
+        offset = 0
+        for k, i in enumerate(members):
+            size = v[k].shape[0]
+            values[i], jacobians[i] = v[k], J[offset:offset + size]
+            new_states[i], codes[i] = st[k], c[k]
+            offset += size
+    return (jnp.concatenate(values), jnp.concatenate(jacobians), tuple(new_states),
+            jnp.stack(codes))
+
+
 def _integer_option(family: str, key: str, value, low: int, high: int) -> int:
     """An integer option in [low, high], else a one-line ConfigError naming it."""
     if isinstance(value, bool) or not isinstance(value, int) or not low <= value <= high:

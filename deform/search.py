@@ -212,17 +212,8 @@ def _move_objective(problem: Problem, ctx: Context, x, states):
 
 
 def _linearized(problem: Problem, x, states):
-    """(values, ∂values/∂x, new states, status codes) by one automatic differentiation."""
-
-    def f(p):
-        values, new_states, codes = _evaluate_all(problem, p, states)
-        return values, (values, new_states, codes)
-
-    # reverse mode when there are fewer tracked values than parameters (one backward pass per
-    # value), forward mode otherwise
-    jacobian = jax.jacrev if len(problem.labels) < x.shape[0] else jax.jacfwd
-    J, (values, new_states, codes) = jacobian(f, has_aux=True)(x)
-    return values, J, new_states, codes
+    """(values, ∂values/∂x, new states, status codes) by automatic differentiation."""
+    return registry.linearize_families(problem.evaluators, problem.curve, x, states)
 
 
 def _target_quantity(problem: Problem, x, values, J):
@@ -325,9 +316,13 @@ def make_continuation(problem: Problem, spec: SearchSpec):
         predicted = x + h * direction
 
         def not_done(carry):
-            _, values, _, _, _, it, _ = carry
-            r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
-            return (it < cs.corrector_iterations) & ~(jnp.max(jnp.abs(r)) <= cs.tolerance)
+            _, values, _, _, _, it, previous = carry
+            size = jnp.max(jnp.abs((values[:problem.n_kept] - ctx.targets) / ctx.scales))
+            # a residual that grew fourfold means the corrector left its basin (the max-norm of
+            # converging Gauss–Newton iterates may grow a little): give up early, the step is
+            # retried at half the length
+            return (it < cs.corrector_iterations) & ~(size <= cs.tolerance) & ~(
+                size > 4.0 * previous)
 
         def pinv_at(p, st):
             J = _linearized(problem, p, st)[1][:problem.n_kept] / ctx.scales[:, None]

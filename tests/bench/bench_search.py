@@ -4,8 +4,9 @@ Plain script (`python tests/bench/bench_search.py [--quick]`). Figures, measured
 * a penalty-mode step (warm invariants, gradient, optax Adam update), 32-mode polar shape
   keeping ~50 values (orbit lengths and traces q ≤ 7, heat c₀..c₅, bouncing balls, area,
   perimeter); issue target ≤ 2 ms;
-* a continuation step (Jacobian, predictor, Gauss–Newton corrector) on the same problem;
-  target ≤ 30 ms; and the extra cost of the distance move objective;
+* continuation on the same problem, Gauss–Newton and chord correctors, coefficient and distance
+  moves: attempts of the real loop (rejections halve the step), ms per attempt and per accepted
+  step (target ≤ 30 ms), with the cost of one Jacobian and of one warm evaluation;
 * 1000 Adam steps on 18 warm orbit lengths of a 16-mode shape (prototype figure: 1.5 s);
 * compile time of the first step in a fresh process with an empty persistent cache (cold) and
   again in a second fresh process with the same cache (cached); targets 20 s / 2 s.
@@ -41,6 +42,7 @@ order = 5
 """
 COEFFICIENT = 'kind = "coefficient"\ncoefficient = "cos[3]"\ntarget = 0.05'
 DISTANCE = 'kind = "distance"'
+STEP = 0.005  # initial continuation step in the weighted coordinates (adapted by the run)
 KEEP_BIG = '["area", "perimeter", "heat_dirichlet", "bouncing_balls", "orbit_lengths", ' \
            '"orbit_traces"]'
 
@@ -72,6 +74,40 @@ def _per_step(prepared, state, count):
     return (time.perf_counter() - t0) / count, info
 
 
+def _attempts(prepared, state, count):
+    """(ms per attempt, accepted attempts, mean corrector iterations) over ``count`` attempts of
+    the real loop (a rejection halves the step, as in a run)."""
+    import jax
+
+    accepted, iterations = 0, 0
+    t0 = time.perf_counter()
+    for _ in range(count):
+        state, info = prepared.update(prepared.ctx, state)
+        info = jax.device_get(info)
+        accepted += bool(info.accepted)
+        iterations += int(info.iterations)
+    return (time.perf_counter() - t0) / count * 1e3, accepted, iterations / count
+
+
+def _components(prepared):
+    """ms for one Jacobian of every tracked value and for one warm evaluation."""
+    import jax
+
+    from deform.search import _evaluate_all, _linearized
+
+    problem, state = prepared.problem, prepared.state
+    jac = jax.jit(lambda x, s: _linearized(problem, x, s)[1])
+    val = jax.jit(lambda x, s: _evaluate_all(problem, x, s)[0])
+    out = []
+    for fn in (jac, val):
+        jax.block_until_ready(fn(state.params, state.evaluator_states))
+        t0 = time.perf_counter()
+        for _ in range(10):
+            jax.block_until_ready(fn(state.params, state.evaluator_states))
+        out.append((time.perf_counter() - t0) / 10 * 1e3)
+    return out
+
+
 def compile_only(text: str) -> None:
     """Child process: print the seconds spent on prepare + first step."""
     from deform.runtime import configure_jax
@@ -98,24 +134,21 @@ def main(quick: bool) -> None:
     print(f"  penalty (adam) step:        {per * 1e3:8.2f} ms   (target <= 2 ms; "
           f"prepare {t_prep:.1f} s, first step incl. compile {t_first:.1f} s)")
 
-    text = BIG.format(mode="continuation", move=COEFFICIENT, **big)
-    prepared, state, t_prep, t_first = _prepared(text)
-    per_c, info = _per_step(prepared, state, 5 if quick else 10)
-    print(f"  continuation step:          {per_c * 1e3:8.2f} ms   (target <= 30 ms; corrector "
-          f"iterations {int(info.iterations)}, first step incl. compile {t_first:.1f} s)")
-
-    chord = text.replace("[search.move]", "[search.continuation]\ncorrector = \"chord\"\n"
-                                            "[search.move]")
-    prepared, state, _, _ = _prepared(chord)
-    per_ch, info = _per_step(prepared, state, 5 if quick else 10)
-    print(f"  continuation, chord corrector:{per_ch * 1e3:6.2f} ms   (ratio to Gauss–Newton "
-          f"{per_ch / per_c:.2f}; iterations {int(info.iterations)})")
-
-    text = BIG.format(mode="continuation", move=DISTANCE, **big)
-    prepared, state, t_prep, t_first = _prepared(text)
-    per_d, _ = _per_step(prepared, state, 5 if quick else 10)
-    print(f"  continuation, distance move:{per_d * 1e3:8.2f} ms   (ratio to coefficient move "
-          f"{per_d / per_c:.2f})")
+    t_jac, t_val = _components(prepared)
+    print(f"  one Jacobian of all {m} values: {t_jac:.2f} ms; one warm evaluation: {t_val:.2f} ms")
+    count = 10 if quick else 30
+    for corrector in ("newton", "chord"):
+        for move in (COEFFICIENT, DISTANCE):
+            text = BIG.format(mode="continuation", move=move, **big).replace(
+                "[search.move]", f"[search.continuation]\nstep_size = {STEP}\n"
+                                 f"corrector = \"{corrector}\"\n[search.move]")
+            prepared, state, t_prep, t_first = _prepared(text)
+            per, accepted, iterations = _attempts(prepared, state, count)
+            what = "coefficient" if move is COEFFICIENT else "distance"
+            print(f"  continuation ({corrector}, {what} move): {per:8.2f} ms per attempt, "
+                  f"{accepted}/{count} accepted, {iterations:.1f} corrector iterations on "
+                  f"average; per accepted step {per * count / max(accepted, 1):.1f} ms "
+                  f"(target <= 30 ms; first step incl. compile {t_first:.1f} s)")
 
     proto = BIG.format(mode="penalty", move=COEFFICIENT, modes=16, keep='["orbit_lengths"]',
                        period=7)
