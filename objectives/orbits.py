@@ -494,14 +494,12 @@ def _local_extrema(values: np.ndarray, maxima: bool) -> np.ndarray:
     return idx[np.argsort(-v[idx], kind="stable")]
 
 
-def _distinct_paths(back, starts, p, n, count, separation=1):
-    """Up to ``count`` grid paths from the given starts (best first) that are not the same orbit:
+def _distinct_paths(traced, n, count, separation=1):
+    """Up to ``count`` of the ``traced`` grid paths (best first) that are not the same orbit:
     a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
     an already kept path is a grid variant of it."""
     kept, paths = [], []
-    # Traced in blocks: usually the first few starts already give ``count`` distinct paths.
-    for path in (path for lo in range(0, len(starts), 8)
-                 for path in birkhoff_paths(back, starts[lo:lo + 8], p, n)):
+    for path in traced:
         gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
         if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
             continue
@@ -513,9 +511,12 @@ def _distinct_paths(back, starts, p, n, count, separation=1):
 
 
 def _lift(t_path: np.ndarray, p: int) -> np.ndarray:
-    """Bounce parameters made monotone (t_{i+1} > t_i, total advance 2πp)."""
-    steps = np.mod(np.diff(np.concatenate([t_path, t_path[:1]])), 2 * np.pi)
-    return t_path[0] + np.concatenate([[0.0], np.cumsum(steps[:-1])])
+    """Bounce parameters made monotone (t_{i+1} > t_i, total advance 2πp); rows of a 2-D array
+    are separate paths."""
+    t_path = np.atleast_2d(t_path)
+    steps = np.mod(np.diff(np.concatenate([t_path, t_path[:, :1]], axis=1), axis=1), 2 * np.pi)
+    zero = np.zeros((t_path.shape[0], 1))
+    return t_path[:, :1] + np.concatenate([zero, np.cumsum(steps[:, :-1], axis=1)], axis=1)
 
 
 def _chord_leaves(poly: np.ndarray, t_poly: np.ndarray, a: np.ndarray, b: np.ndarray,
@@ -584,19 +585,22 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
         n = size[(p, q)]
         t_grid = grids[n]
         table, back = tables[(p, q)]
-        for branch, maxima in ((MAX, True), (MINIMAX, False)):
-            if only is not None and (p, q, branch) not in only:
-                continue
-            # Every local extremum of B, best first: on a coarse grid the discretization error of
-            # B exceeds the gap between near-tied orbits, so no value margin is imposed; grid
-            # variants of one orbit are merged, so the ``candidates`` seeds are distinct orbits.
-            starts = _local_extrema(table, maxima)
-            paths = _distinct_paths(back, starts, p, n, candidates, max(1, n // (6 * q)))
+        branches = [(branch, maxima) for branch, maxima in ((MAX, True), (MINIMAX, False))
+                    if only is None or (p, q, branch) in only]
+        # Every local extremum of B, best first: on a coarse grid the discretization error of B
+        # exceeds the gap between near-tied orbits, so no value margin is imposed; grid variants
+        # of one orbit are merged, so the ``candidates`` seeds are distinct orbits. The optimal
+        # paths of both kinds are traced in one pass.
+        starts = [_local_extrema(table, maxima) for _, maxima in branches]
+        traced = np.split(birkhoff_paths(back, np.concatenate(starts), p, n),
+                          np.cumsum([len(x) for x in starts])[:-1])
+        for (branch, _), group in zip(branches, traced):
+            paths = _distinct_paths(group, n, candidates, max(1, n // (6 * q)))
             # Neighbouring maxima along a near-integrable orbit family can merge on the grid:
             # also seed from the best path shifted by ±1, ±2 points along the boundary.
             paths += [np.mod(paths[0] + shift, n) for shift in SEED_SHIFTS]
-            for path in paths:
-                seeds.append((p, q, branch, _lift(t_grid[path], p)))
+            for lifted in _lift(t_grid[np.stack(paths)], p):
+                seeds.append((p, q, branch, lifted))
     return seeds
 
 
