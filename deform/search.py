@@ -6,11 +6,13 @@ values F₀ through the relative residual r(x) = (F(x) − F₀)/s, s_i = max(|F
 * ``continuation`` follows {r = 0}: tangent predictor in the null space of J = ∂r/∂x (SVD,
   numerical rank at ``rank_tolerance``·σ_max), oriented by the projected gradient of the move
   objective (the previous tangent, or a random null direction from the PRNG key, when that
-  vanishes), then a Gauss–Newton corrector x ← x − J⁺r(x) with J frozen at the base point
-  (chord method, minimal-norm corrections). Failed steps are rejected and retried with half
-  the step; easy steps grow it.
+  vanishes), then a minimal-norm corrector x ← x − J⁺r(x): Gauss–Newton (J at every iterate,
+  the default) or the chord method (J of the base point, refreshed when the residual contracts
+  by less than half). Failed steps are rejected and retried with half the step; easy steps
+  grow it.
 * ``penalty`` minimizes ½μ‖r‖² + λ·r − w·(move objective) with optax (adam, L-BFGS, sgd);
-  λ is the augmented-Lagrangian multiplier, updated λ ← λ + μr every few accepted steps.
+  λ is the augmented-Lagrangian multiplier, updated λ ← λ + μr every few accepted steps. One
+  evaluation (forward pass and pullback) per step, at the candidate point.
 
 Move objectives (maximized): D(x₀, x)² for ``distance`` (objectives.distance, isometry-
 invariant), −½(q(x) − target)² for a coefficient or a non-kept invariant entry q.
