@@ -86,20 +86,21 @@ def _evaluator(labels, select, max_period, iterates, values_fn, selection):
     return Evaluator(labels, init, evaluate, _recheck(max_period), shared)
 
 
-def _orbit_lengths(max_period, branches):
-    max_period = _check_period("orbit_lengths", max_period)
-    branches = _check_branches("orbit_lengths", branches)
-    names, select = _birkhoff_selection(max_period, branches)
-    return _evaluator(tuple(f"L[{n}]" for n in names), select, max_period, 1,
-                      lambda o: o.length, ("birkhoff", branches))
+def _birkhoff_values(name, prefix, values_fn):
+    """Builder of a family reading ``values_fn`` off the max/min-max p/q orbits, q ≤ max_period."""
+
+    def build(max_period, branches):
+        max_period = _check_period(name, max_period)
+        branches = _check_branches(name, branches)
+        names, select = _birkhoff_selection(max_period, branches)
+        return _evaluator(tuple(f"{prefix}[{n}]" for n in names), select, max_period, 1,
+                          values_fn, ("birkhoff", branches))
+
+    return build
 
 
-def _orbit_traces(max_period, branches):
-    max_period = _check_period("orbit_traces", max_period)
-    branches = _check_branches("orbit_traces", branches)
-    names, select = _birkhoff_selection(max_period, branches)
-    return _evaluator(tuple(f"tr[{n}]" for n in names), select, max_period, 1,
-                      lambda o: o.trace, ("birkhoff", branches))
+_orbit_lengths = _birkhoff_values("orbit_lengths", "L", lambda o: o.length)
+_orbit_traces = _birkhoff_values("orbit_traces", "tr", lambda o: o.trace)
 
 
 def _bouncing_balls(count):
