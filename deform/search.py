@@ -403,7 +403,8 @@ def make_penalty(problem: Problem, spec: SearchSpec):
     """(init, update) for the penalty / augmented-Lagrangian descent.
 
     One evaluation per step: ``update`` evaluates the invariants and the loss gradient at the
-    candidate x + s·u (u the optimizer update pending from the last accepted point x), accepts
+    candidate x + s·Wu (u the optimizer update in the weighted coordinates y, x = x₀ + W y,
+    pending from the last accepted point x), accepts
     or rejects it, and on acceptance computes the next pending update from that same gradient.
     A rejection halves s and retries from x. The first call (:func:`prepare` makes it) evaluates
     the start, where u = 0, and only primes u.
@@ -436,8 +437,10 @@ def make_penalty(problem: Problem, spec: SearchSpec):
 
     def update(ctx: Context, state: SearchState):
         TRACES["penalty"] += 1
-        x, states = state.params, state.evaluator_states
-        candidate = x + state.step_size * state.tangent
+        # optax works in the weighted coordinates y, x = x₀ + W y (see step_weights): Adam's
+        # per-coordinate steps would otherwise move a mode-32 coefficient as far as the radius
+        x, states, w = state.params, state.evaluator_states, ctx.weights
+        candidate = x + state.step_size * w * state.tangent
         (r, objective), pullback, (values, states_new, codes) = jax.vjp(
             lambda p: forward(ctx, p, states), candidate, has_aux=True)
         residual = jnp.max(jnp.abs(r))
@@ -451,10 +454,12 @@ def make_penalty(problem: Problem, spec: SearchSpec):
         multipliers = jnp.where(refresh, state.multipliers + ps.weight * r, state.multipliers)
         # the pending update uses the refreshed multipliers; the backward pass runs once
         value = loss_of(r, objective, multipliers)
-        grad = pullback((ps.weight * r + multipliers, -ps.move_weight * jnp.ones_like(objective)))[0]
-        value_fn = lambda p: loss_of(*forward(ctx, p, states)[0], multipliers)  # noqa: E731
-        updates, opt_state = tx.update(grad, state.opt_state, candidate, value=value, grad=grad,
-                                       value_fn=value_fn)
+        grad = w * pullback((ps.weight * r + multipliers,
+                             -ps.move_weight * jnp.ones_like(objective)))[0]
+        value_fn = lambda y: loss_of(  # noqa: E731
+            *forward(ctx, ctx.start + w * y, states)[0], multipliers)
+        updates, opt_state = tx.update(grad, state.opt_state, (candidate - ctx.start) / w,
+                                       value=value, grad=grad, value_fn=value_fn)
         accepted = accepted & jnp.all(jnp.isfinite(updates))
         pick = lambda a, b: jax.tree_util.tree_map(  # noqa: E731
             lambda u, v: jnp.where(accepted, u, v), a, b)
@@ -470,7 +475,7 @@ def make_penalty(problem: Problem, spec: SearchSpec):
         status = jnp.where(accepted | (status != int(Status.ok)), status, code(Status.nonfinite))
         info = StepInfo(accepted, status, codes, candidate, values, r, residual,
                         _move_quantity(problem, ctx, candidate, values), jnp.asarray(jnp.nan),
-                        state.step_size * jnp.linalg.norm(state.tangent),
+                        state.step_size * jnp.linalg.norm(w * state.tangent),
                         jnp.asarray(1, jnp.int32), jnp.asarray(-1, jnp.int32))
         return new_state, info
 
