@@ -208,3 +208,43 @@ def test_invariant_family_contract(name):
     rtol = INVARIANCE_RTOL.get(name, 1e-9)
     assert np.allclose(np.asarray(moved_values), values, rtol=rtol, atol=rtol), (
         name, np.asarray(moved_values) - values)
+
+
+def test_shared_warm_solves_equal_separate_evaluations():
+    """Families that share one warm solve (orbit lengths, traces, wave amplitudes of the same
+    orbits) give through evaluate_families / linearize_families exactly what each gives alone:
+    the same values, states and statuses, and Jacobians equal to each family's own forward-mode
+    Jacobian (common practice: a cache must not change results)."""
+    shape = from_family(parse_shape(Reader(SHAPE_EXAMPLES["polar"], "shape")))
+    curve = shape.curve()
+    names = ["orbit_lengths", "area", "orbit_traces", "wave"]
+    evaluators = [invariants.build(n, {"max_period": 3} if n != "area" else {}) for n in names]
+    assert evaluators[0].shared.key == evaluators[2].shared.key != evaluators[3].shared.key
+    states = invariants.init_families(evaluators, curve)
+    assert states[0] is states[2]
+    family = shape.family
+
+    def curve_of(p):
+        from objectives.curve import Curve
+
+        return Curve(family.boundary, p)
+
+    x = jnp.asarray(family.initial_params())
+    values, new_states, codes = jax.jit(
+        lambda x, s: invariants.evaluate_families(evaluators, curve_of(x), s))(x, states)
+    flat, jac, _, codes_lin = jax.jit(
+        lambda x, s: invariants.linearize_families(evaluators, curve_of, x, s))(x, states)
+    offset = 0
+    for k, (ev, st) in enumerate(zip(evaluators, states)):
+        alone, state_alone, status_alone = ev.evaluate(curve_of(x), st)
+        np.testing.assert_allclose(values[k], jnp.atleast_1d(alone), rtol=1e-13, atol=1e-15)
+        assert int(codes[k]) == int(jnp.max(jnp.atleast_1d(status_alone))) == int(codes_lin[k])
+        for a, b in zip(jax.tree_util.tree_leaves(new_states[k]),
+                        jax.tree_util.tree_leaves(state_alone)):
+            np.testing.assert_allclose(a, b, rtol=1e-13, atol=1e-14)
+        own = jax.jacfwd(lambda p, ev=ev, st=st: jnp.atleast_1d(ev.evaluate(curve_of(p), st)[0]))(x)
+        size = own.shape[0]
+        np.testing.assert_allclose(flat[offset:offset + size], values[k], rtol=1e-13, atol=1e-15)
+        np.testing.assert_allclose(jac[offset:offset + size], own, rtol=1e-9,
+                                   atol=1e-11 * float(jnp.max(jnp.abs(own))))
+        offset += size
