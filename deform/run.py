@@ -181,7 +181,7 @@ def run_search(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
                 note, reports = "", []
                 due = spec.recheck_every and int(state.step) % spec.recheck_every == 0
                 if due or int(state.step) == limit:
-                    state, reports = recheck(problem, state)
+                    state, reports = recheck(problem, state, prepared.linearize)
                 writer.append("steps", _row(prepared, sample, state, info))
                 progress(_line(int(state.step), info, note))
                 bad = [(name, st) for name, st in reports if st != Status.ok]

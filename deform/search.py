@@ -59,6 +59,9 @@ class SearchState(NamedTuple):
     multipliers: jax.Array     # augmented-Lagrangian λ (penalty)
     opt_state: Any             # optax state (penalty), () otherwise
     evaluator_states: tuple    # one warm state per tracked invariant family
+    values: jax.Array          # tracked values at params (continuation), empty otherwise
+    jacobian: jax.Array        # their Jacobian ∂values/∂x at params (continuation)
+    linearized: jax.Array      # values and jacobian hold the linearization at params (bool)
 
 
 class StepInfo(NamedTuple):
@@ -268,27 +271,43 @@ def _null_space(J, rank_tolerance):
     return projector, pinv, jnp.sum(in_rank), jnp.sum(null_mask)
 
 
-def make_continuation(problem: Problem, spec: SearchSpec):
-    """(init, update) for predictor–corrector continuation along {r = 0}."""
-    cs = spec.continuation
+def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | None = None):
+    """(init, update) for predictor–corrector continuation along {r = 0}.
 
-    def init(ctx: Context, key, evaluator_states) -> SearchState:
-        n = ctx.start.shape[0]
+    The state carries the values and Jacobian at its point, so a step linearizes once per
+    corrector iterate (Gauss–Newton) and a rejected attempt costs no new Jacobian at the base;
+    the corrector ends with the linearization at the new point, which the next step uses.
+    ``linearize`` is ``(x, states) -> (values, J, states, codes)``; pass the jitted one from
+    :func:`prepare` so its trace is reused.
+    """
+    cs = spec.continuation
+    newton = cs.corrector == "newton"
+    linearize = linearize or (lambda x, states: _linearized(problem, x, states))
+
+    def init(ctx: Context, key, evaluator_states, values, jacobian) -> SearchState:
+        """With ``values``/``jacobian`` None the state is not linearized yet: the first
+        ``update`` then only linearizes at the start (an attempt that is never accepted)."""
+        n, m = ctx.start.shape[0], len(problem.labels)
+        linearized = values is not None
+        values = jnp.zeros(m) if values is None else values
+        jacobian = jnp.zeros((m, n)) if jacobian is None else jacobian
         return SearchState(
             step=jnp.asarray(0, jnp.int32), params=jnp.asarray(ctx.start), key=key,
             tangent=jnp.zeros(n), step_size=jnp.asarray(cs.step_size),
             rejections=jnp.asarray(0, jnp.int32), multipliers=jnp.zeros(problem.n_kept),
-            opt_state=(), evaluator_states=evaluator_states)
+            opt_state=(), evaluator_states=evaluator_states, values=jnp.asarray(values),
+            jacobian=jnp.asarray(jacobian), linearized=jnp.asarray(linearized))
 
     def update(ctx: Context, state: SearchState):
         TRACES["continuation"] += 1
         x, states, w = state.params, state.evaluator_states, ctx.weights
-        kept = lambda v, J: ((v[:problem.n_kept] - ctx.targets) / ctx.scales,  # noqa: E731
-                             J[:problem.n_kept] / ctx.scales[:, None])
-        values_x, J_x, _, _ = _linearized(problem, x, states)
+        values_x, J_x = state.values, state.jacobian
+        # priming: one pass that linearizes at x itself, so prepare needs no separate program
+        prime = ~state.linearized
+        kept = lambda v: (v[:problem.n_kept] - ctx.targets) / ctx.scales  # noqa: E731
+        kept_J = lambda J: J[:problem.n_kept] / ctx.scales[:, None] * w  # noqa: E731
         # all linear algebra in the weighted coordinates y (x = x₀ + W y)
-        projector, pinv_x, _, null_dim = _null_space(kept(values_x, J_x)[1] * w,
-                                                     cs.rank_tolerance)
+        projector, pinv_x, _, null_dim = _null_space(kept_J(J_x), cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
         if problem.move_kind == "distance":
             objective, move_grad = jax.value_and_grad(
@@ -315,51 +334,77 @@ def make_continuation(problem: Problem, spec: SearchSpec):
             # do not overshoot the target: a linear estimate of the remaining distance
             rate = jnp.abs(dq @ direction)
             h = jnp.minimum(h, jnp.abs(q - problem.move_target) / jnp.maximum(rate, 1e-12))
-        predicted = x + h * direction
+        predicted = jnp.where(prime, x, x + h * direction)
 
-        def not_done(carry):
-            _, values, _, _, _, it, previous = carry
-            size = jnp.max(jnp.abs((values[:problem.n_kept] - ctx.targets) / ctx.scales))
-            # a residual that grew fourfold means the corrector left its basin (the max-norm of
-            # converging Gauss–Newton iterates may grow a little): give up early, the step is
-            # retried at half the length
-            return (it < cs.corrector_iterations) & ~(size <= cs.tolerance) & ~(
-                size > 4.0 * previous)
-
-        def pinv_at(p, st):
-            J = _linearized(problem, p, st)[1][:problem.n_kept] / ctx.scales[:, None]
-            return jnp.linalg.pinv(J * w, rtol=cs.rank_tolerance)
-
-        def correct(carry):
-            p, values, pinv, st, codes, it, previous = carry
-            r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
-            size = jnp.max(jnp.abs(r))
-            # Gauss–Newton ("newton") takes J at every iterate; the chord method keeps the base
-            # point's J and refreshes it only when the residual contracts by less than half.
-            refresh = (cs.corrector == "newton") | (size > 0.5 * previous)
-            pinv = jax.lax.cond(refresh, pinv_at, lambda p, st: pinv, p, st)
-            p = p - w * (pinv @ r)
+        def values_only(p, st):
             values, st, codes = _evaluate_all(problem, p, st)
-            return p, values, pinv, st, codes, it + 1, size
+            return values, J_x, st, codes
 
-        values_pred, states_pred, codes_pred = _evaluate_all(problem, predicted, states)
-        x_new, values, _, states_new, codes, iterations, _ = jax.lax.while_loop(
-            not_done, correct,
-            (predicted, values_pred, pinv_x, states_pred, codes_pred, jnp.asarray(0, jnp.int32),
-             jnp.asarray(jnp.inf)))
-        r = (values[:problem.n_kept] - ctx.targets) / ctx.scales
+        class Carry(NamedTuple):
+            p: jax.Array          # current iterate
+            want_jacobian: jax.Array  # linearize (not only evaluate) at p in this pass
+            pinv: jax.Array       # (J W)⁺ used for corrections
+            values: jax.Array     # values at the last visited point
+            jacobian: jax.Array   # J at the last visited point when ``fresh``
+            fresh: jax.Array
+            states: tuple
+            codes: jax.Array
+            corrections: jax.Array
+            passes: jax.Array
+            previous: jax.Array   # residual size before the last correction
+            done: jax.Array
+            failed: jax.Array
+
+        def go_on(c: Carry):
+            return ~c.done & (c.passes < 2 * cs.corrector_iterations + 2)
+
+        def visit(c: Carry):
+            # Gauss–Newton linearizes at every iterate; the chord method evaluates and keeps
+            # the base J, linearizing only when the residual contracts by less than half and
+            # once at the converged point (that J is the next step's base)
+            values, J, st, codes = jax.lax.cond(c.want_jacobian, linearize, values_only,
+                                                c.p, c.states)
+            r = kept(values)
+            size = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
+            converged = size <= cs.tolerance
+            # a residual that grew fourfold means the corrector left its basin (the max-norm
+            # of converging Gauss–Newton iterates may grow a little): give up, the step is
+            # retried at half the length
+            failed = (size > 4.0 * c.previous) | (
+                ~converged & (c.corrections >= cs.corrector_iterations)) | ~jnp.isfinite(size)
+            fresh = c.want_jacobian
+            pinv = jax.lax.cond(fresh & ~converged,
+                                lambda J: jnp.linalg.pinv(kept_J(J), rtol=cs.rank_tolerance),
+                                lambda J: c.pinv, J)
+            # chord: a stale J at a converged point, or a poor contraction, asks for a fresh J
+            # at the same point before going on
+            relinearize = ~fresh & (converged | (size > 0.5 * c.previous))
+            move = ~converged & ~failed & ~relinearize
+            p = jnp.where(move, c.p - w * (pinv @ r), c.p)
+            return Carry(p, jnp.asarray(newton) | relinearize, pinv, values, J, fresh, st,
+                         codes, c.corrections + move.astype(jnp.int32), c.passes + 1,
+                         jnp.where(move, size, c.previous),
+                         (converged & fresh) | failed | prime, failed)
+
+        start = Carry(predicted, jnp.asarray(newton) | prime, pinv_x, values_x, J_x,
+                      jnp.asarray(False), states, jnp.zeros(len(problem.evaluators), jnp.int32),
+                      jnp.asarray(0, jnp.int32), jnp.asarray(0, jnp.int32),
+                      jnp.asarray(jnp.inf), jnp.asarray(False), jnp.asarray(False))
+        end = jax.lax.while_loop(go_on, visit, start)
+        x_new, values, iterations = end.p, end.values, end.corrections
+        r = kept(values)
         residual = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
-        converged = residual <= cs.tolerance
-        status = combine(jnp.max(codes), constraint_status(problem, x_new),
+        converged = (residual <= cs.tolerance) & end.fresh & ~end.failed
+        status = combine(jnp.max(end.codes), constraint_status(problem, x_new),
                          jnp.where(converged, code(Status.ok), code(Status.solver_failed)),
                          jnp.where(null_dim > 0, code(Status.ok), code(Status.degenerate)),
                          jnp.where(jnp.all(jnp.isfinite(values)), code(Status.ok),
                                    code(Status.nonfinite)))
-        accepted = status == int(Status.ok)
+        accepted = (status == int(Status.ok)) & ~prime
         # a step past an extremum of the move objective is kept (it is a valid point of the
         # set) but halves the step, so the search settles instead of oscillating
         if problem.move_kind == "distance":
-            new_objective = _move_objective(problem, ctx, x_new, states_new)
+            new_objective = _move_objective(problem, ctx, x_new, end.states)
         else:
             q_new = _move_quantity(problem, ctx, x_new, values)
             new_objective = -0.5 * (q_new - problem.move_target) ** 2
@@ -375,8 +420,12 @@ def make_continuation(problem: Problem, spec: SearchSpec):
             step_size=jnp.where(accepted, grown, state.step_size * 0.5),
             rejections=jnp.where(accepted, 0, state.rejections + 1),
             multipliers=state.multipliers, opt_state=(),
-            evaluator_states=pick(states_new, states))
-        info = StepInfo(accepted, status, codes, x_new, values, r, residual,
+            evaluator_states=pick(end.states, states), values=pick(values, values_x),
+            jacobian=pick(end.jacobian, J_x), linearized=jnp.asarray(True))
+        new_state = jax.tree_util.tree_map(lambda u, v: jnp.where(prime, u, v), state._replace(
+            evaluator_states=end.states, values=values, jacobian=end.jacobian,
+            linearized=jnp.asarray(True)), new_state)
+        info = StepInfo(accepted, status, end.codes, x_new, values, r, residual,
                         _move_quantity(problem, ctx, x_new, values), jnp.asarray(jnp.nan), h,
                         iterations, null_dim)
         return new_state, info
@@ -399,7 +448,7 @@ def _optimizer(spec: SearchSpec) -> optax.GradientTransformationExtraArgs:
     return optax.chain(base, optax.clip_by_global_norm(ps.max_update))
 
 
-def make_penalty(problem: Problem, spec: SearchSpec):
+def make_penalty(problem: Problem, spec: SearchSpec, linearize: Callable | None = None):
     """(init, update) for the penalty / augmented-Lagrangian descent.
 
     One evaluation per step: ``update`` evaluates the invariants and the loss gradient at the
@@ -409,6 +458,7 @@ def make_penalty(problem: Problem, spec: SearchSpec):
     A rejection halves s and retries from x. The first call (:func:`prepare` makes it) evaluates
     the start, where u = 0, and only primes u.
     """
+    del linearize  # each step differentiates once, at its candidate, by a pullback
     ps = spec.penalty
     tx = _optimizer(spec)
 
@@ -427,13 +477,15 @@ def make_penalty(problem: Problem, spec: SearchSpec):
         return (0.5 * ps.weight * jnp.sum(r * r) + jnp.sum(multipliers * r)
                 - ps.move_weight * objective)
 
-    def init(ctx: Context, key, evaluator_states) -> SearchState:
+    def init(ctx: Context, key, evaluator_states, values, jacobian) -> SearchState:
+        del values, jacobian  # each step evaluates and differentiates at its candidate
         x = jnp.asarray(ctx.start)
         return SearchState(
             step=jnp.asarray(0, jnp.int32), params=x, key=key, tangent=jnp.zeros_like(x),
             step_size=jnp.asarray(1.0), rejections=jnp.asarray(0, jnp.int32),
             multipliers=jnp.zeros(problem.n_kept), opt_state=tx.init(x),
-            evaluator_states=evaluator_states)
+            evaluator_states=evaluator_states, values=jnp.zeros(0), jacobian=jnp.zeros(0),
+            linearized=jnp.asarray(False))
 
     def update(ctx: Context, state: SearchState):
         TRACES["penalty"] += 1
@@ -471,7 +523,8 @@ def make_penalty(problem: Problem, spec: SearchSpec):
             rejections=jnp.where(accepted, 0, state.rejections + 1),
             multipliers=pick(multipliers, state.multipliers),
             opt_state=pick(opt_state, state.opt_state),
-            evaluator_states=pick(states_new, states))
+            evaluator_states=pick(states_new, states), values=state.values,
+            jacobian=state.jacobian, linearized=state.linearized)
         status = jnp.where(accepted | (status != int(Status.ok)), status, code(Status.nonfinite))
         info = StepInfo(accepted, status, codes, candidate, values, r, residual,
                         _move_quantity(problem, ctx, candidate, values), jnp.asarray(jnp.nan),
@@ -485,6 +538,8 @@ def make_penalty(problem: Problem, spec: SearchSpec):
 MODES: dict[str, Callable] = {"continuation": make_continuation, "penalty": make_penalty}
 PRIMING_CALLS = {"continuation": 0, "penalty": 1}
 """Calls of ``update`` that :func:`prepare` makes before step 1 (penalty: evaluate the start)."""
+CARRIES_LINEARIZATION = {"continuation": True, "penalty": False}
+"""Modes whose state holds the values and Jacobian at its point (primed by a first update)."""
 
 
 # --------------------------------------------------------------------------- set-up
@@ -501,6 +556,7 @@ class Prepared(NamedTuple):
     start_status: np.ndarray
     rank: int
     singular_values: np.ndarray
+    linearize: Callable        # jitted (x, states) -> (values, J, states, codes)
 
 
 def named_keys(seed: int, names: tuple[str, ...]) -> dict[str, jax.Array]:
@@ -511,27 +567,37 @@ def named_keys(seed: int, names: tuple[str, ...]) -> dict[str, jax.Array]:
 
 def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
     """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian."""
-    curve = problem.curve(jnp.asarray(problem.start))
-    states = registry.init_families(problem.evaluators, curve)
-    values, J, states, codes = jax.jit(lambda x, s: _linearized(problem, x, s))(
-        jnp.asarray(problem.start), states)
+    x0 = jnp.asarray(problem.start)
+    states = registry.init_families(problem.evaluators, problem.curve(x0))
+    linearize = jax.jit(lambda x, s: _linearized(problem, x, s))
+    weights = step_weights(problem.family, spec.smoothness)
+    init, update = MODES[spec.mode](problem, spec, linearize)
+    update = jax.jit(_same_types(update))
+    key = named_keys(spec.seed, ("search",))["search"]
+    state = None
+    if CARRIES_LINEARIZATION[spec.mode]:
+        # the update's priming pass linearizes at the start (targets do not enter it), so the
+        # run compiles one program instead of two
+        provisional = Context(x0, jnp.zeros(problem.n_kept), jnp.ones(problem.n_kept),
+                              jnp.asarray(weights))
+        state, info = update(provisional, _strongly_typed(init(provisional, key, states,
+                                                               None, None)))
+        values, J_start, codes = state.values, state.jacobian, info.family_status
+    else:
+        values, J_start, states, codes = linearize(x0, states)
     values = np.asarray(values)
     targets = values[:problem.n_kept]
     scales = np.maximum(np.abs(targets), spec.scale_floor)
-    weights = step_weights(problem.family, spec.smoothness)
-    ctx = Context(jnp.asarray(problem.start), jnp.asarray(targets), jnp.asarray(scales),
-                  jnp.asarray(weights))
-    J = np.asarray(J)[:problem.n_kept] / scales[:, None]
+    ctx = Context(x0, jnp.asarray(targets), jnp.asarray(scales), jnp.asarray(weights))
+    J = np.asarray(J_start)[:problem.n_kept] / scales[:, None]
     sv = np.linalg.svd(J * weights, compute_uv=False)
     tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
     rank = int(np.sum(sv > tol))
-    init, update = MODES[spec.mode](problem, spec)
-    key = named_keys(spec.seed, ("search",))["search"]
-    state = _strongly_typed(init(ctx, key, states))
-    update = jax.jit(_same_types(update))
+    if state is None:
+        state = _strongly_typed(init(ctx, key, states, values, J_start))
     for _ in range(PRIMING_CALLS[spec.mode]):
         state = update(ctx, state)[0]._replace(step=state.step, rejections=state.rejections)
-    return Prepared(problem, ctx, state, update, values, np.asarray(codes), rank, sv)
+    return Prepared(problem, ctx, state, update, values, np.asarray(codes), rank, sv, linearize)
 
 
 def _strongly_typed(tree):
@@ -600,8 +666,13 @@ def evaluator_data(problem: Problem, state: SearchState) -> dict[str, np.ndarray
     return out
 
 
-def recheck(problem: Problem, state: SearchState) -> tuple[SearchState, list[tuple[str, Status]]]:
-    """Run the evaluators' ``recheck`` hooks on the current shape (outside jit)."""
+def recheck(problem: Problem, state: SearchState, linearize: Callable | None = None
+            ) -> tuple[SearchState, list[tuple[str, Status]]]:
+    """Run the evaluators' ``recheck`` hooks on the current shape (outside jit).
+
+    A hook that hands back a new state (a re-seeded orbit) invalidates the values and Jacobian
+    a continuation state carries; they are recomputed with ``linearize`` (``Prepared.linearize``).
+    """
     curve = problem.curve(state.params)
     new_states, reports, done = [], [], {}
     for name, ev, st in zip(problem.names, problem.evaluators, state.evaluator_states):
@@ -616,4 +687,12 @@ def recheck(problem: Problem, state: SearchState) -> tuple[SearchState, list[tup
         st, status = result if key is None else done[key]
         new_states.append(st)
         reports.append((name, Status(int(status))))
-    return state._replace(evaluator_states=tuple(new_states)), reports
+    changed = any(a is not b for a, b in zip(new_states, state.evaluator_states))
+    state = state._replace(evaluator_states=tuple(new_states))
+    if changed and state.jacobian.size:
+        if linearize is None:
+            raise ValueError("recheck: a hook changed a tracked state; pass `linearize` so the "
+                             "carried Jacobian is recomputed")
+        values, J, states, _ = linearize(state.params, state.evaluator_states)
+        state = state._replace(values=values, jacobian=J, evaluator_states=states)
+    return state, reports
