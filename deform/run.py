@@ -132,7 +132,7 @@ def run_search(family: ShapeFamily, spec: SearchSpec, options: InvariantOptions,
     limit = spec.steps if steps is None else steps
     problem = build_problem(family, spec, options)
     _check_start(problem)
-    prepared = prepare(problem, spec)
+    prepared = prepare(problem, spec, identity=f"{config_text}\n{spec!r}\n{options!r}")
     tables = _tables(prepared, spec)
     sample = boundary_sampler(problem, spec.boundary_points)
     meter = distance_meter(problem)

@@ -38,6 +38,7 @@ from objectives.status import Status, code, combine
 from . import invariants as registry
 from .errors import ConfigError
 from .families import ShapeFamily
+from .programs import persistent_jit
 from .searchspec import InvariantOptions, SearchSpec
 
 SIMPLICITY_FLOOR = 1e-3
@@ -565,36 +566,48 @@ def named_keys(seed: int, names: tuple[str, ...]) -> dict[str, jax.Array]:
     return dict(zip(names, keys))
 
 
-def prepare(problem: Problem, spec: SearchSpec) -> Prepared:
-    """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian."""
+def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> Prepared:
+    """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian.
+
+    ``identity`` (text that determines the problem, e.g. the config) keeps the step program on
+    disk (:mod:`deform.programs`), so a later run of the same config does not trace it again.
+    """
     x0 = jnp.asarray(problem.start)
     states = registry.init_families(problem.evaluators, problem.curve(x0))
     linearize = jax.jit(lambda x, s: _linearized(problem, x, s))
-    weights = step_weights(problem.family, spec.smoothness)
+    weights = jnp.asarray(step_weights(problem.family, spec.smoothness))
     init, update = MODES[spec.mode](problem, spec, linearize)
-    update = jax.jit(_same_types(update))
     key = named_keys(spec.seed, ("search",))["search"]
-    state = None
-    if CARRIES_LINEARIZATION[spec.mode]:
-        # the update's priming pass linearizes at the start (targets do not enter it), so the
-        # run compiles one program instead of two
-        provisional = Context(x0, jnp.zeros(problem.n_kept), jnp.ones(problem.n_kept),
-                              jnp.asarray(weights))
-        state, info = update(provisional, _strongly_typed(init(provisional, key, states,
-                                                               None, None)))
-        values, J_start, codes = state.values, state.jacobian, info.family_status
+    # targets and scales are arguments, not constants: these stand in until the start is known
+    provisional = Context(x0, jnp.zeros(problem.n_kept), jnp.ones(problem.n_kept), weights)
+    carries = CARRIES_LINEARIZATION[spec.mode]
+    if carries:
+        state = _strongly_typed(init(provisional, key, states, None, None))
     else:
         values, J_start, states, codes = linearize(x0, states)
+        state = _strongly_typed(init(provisional, key, states, values, J_start))
+    update = _same_types(update)
+    # committed like the update's outputs, so later calls hit the same compiled program
+    state = jax.device_put(state, jax.devices()[0])
+    if identity is None:
+        update = jax.jit(update)
+    else:
+        out_tree = jax.tree_util.tree_structure((state, StepInfo(*[0] * len(StepInfo._fields))))
+        update = persistent_jit(update, (provisional, state), out_tree,
+                                f"search/{spec.mode}\n{identity}")
+    if carries:
+        # the update's priming pass linearizes at the start (targets do not enter it), so the
+        # run compiles one program instead of two
+        state, info = update(provisional, state)
+        values, J_start, codes = state.values, state.jacobian, info.family_status
     values = np.asarray(values)
     targets = values[:problem.n_kept]
     scales = np.maximum(np.abs(targets), spec.scale_floor)
-    ctx = Context(x0, jnp.asarray(targets), jnp.asarray(scales), jnp.asarray(weights))
+    ctx = Context(x0, jnp.asarray(targets), jnp.asarray(scales), weights)
     J = np.asarray(J_start)[:problem.n_kept] / scales[:, None]
-    sv = np.linalg.svd(J * weights, compute_uv=False)
+    sv = np.linalg.svd(J * np.asarray(weights), compute_uv=False)
     tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
     rank = int(np.sum(sv > tol))
-    if state is None:
-        state = _strongly_typed(init(ctx, key, states, values, J_start))
     for _ in range(PRIMING_CALLS[spec.mode]):
         state = update(ctx, state)[0]._replace(step=state.step, rejections=state.rejections)
     return Prepared(problem, ctx, state, update, values, np.asarray(codes), rank, sv, linearize)
@@ -639,7 +652,8 @@ def unflatten_state(template: SearchState, vector: np.ndarray) -> SearchState:
     if offset != vector.size:
         raise ConfigError(f"--resume: the record's state has {vector.size} entries, this config "
                           f"needs {offset} (was the record made with another config?)")
-    return jax.tree_util.tree_unflatten(treedef, out)
+    # committed like the update's outputs, so the next call reuses the compiled program
+    return jax.device_put(jax.tree_util.tree_unflatten(treedef, out), jax.devices()[0])
 
 
 def distance_meter(problem: Problem) -> Callable[[Any], float]:

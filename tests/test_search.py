@@ -147,12 +147,38 @@ tolerance = 2e-5
     assert search.TRACES["penalty"] >= 1
 
 
-def test_no_retracing_between_steps(tmp_path):
+def test_no_retracing_between_steps(tmp_path, monkeypatch):
     """Trace counter (equinox-style): one trace for a whole multi-step run."""
+    monkeypatch.setenv("DEFORM_CACHE", str(tmp_path / "cache"))  # no program kept from before
     before = search.TRACES["continuation"]
     cfg, rec = run(DISK_AREA.replace("steps = 6", "steps = 3"), tmp_path)
     assert rec.rows("steps") == 4
     assert search.TRACES["continuation"] - before == 1
+
+
+@pytest.mark.parametrize("mode", ["continuation", "penalty"])
+def test_a_second_run_of_a_config_reuses_the_kept_step_program(tmp_path, monkeypatch, mode):
+    """The step program is exported once per config: the second run does not trace it and
+    records the same trajectory bit for bit (common practice for build caches)."""
+    monkeypatch.setenv("DEFORM_CACHE", str(tmp_path / "cache"))
+    text = DISK_AREA.replace("steps = 6", "steps = 3").replace(
+        '"continuation"', f'"{mode}"').replace("keep = [\"area\"]",
+                                               'keep = ["area"]\nwatch = ["perimeter"]')
+    before = search.TRACES[mode]
+    _, first = run(text, tmp_path, name="first.h5")
+    assert search.TRACES[mode] - before == 1
+    assert list((tmp_path / "cache" / "programs").iterdir())
+    _, second = run(text, tmp_path, name="second.h5")
+    assert search.TRACES[mode] - before == 1
+    for column in ("params", "invariants", "state"):
+        np.testing.assert_array_equal(first.table("steps")[column],
+                                      second.table("steps")[column])
+    # a damaged program file is replaced, not trusted
+    for path in (tmp_path / "cache" / "programs").iterdir():
+        path.write_bytes(b"not a program")
+    _, third = run(text, tmp_path, name="third.h5")
+    assert search.TRACES[mode] - before == 2
+    np.testing.assert_array_equal(first.table("steps")["params"], third.table("steps")["params"])
 
 
 def test_kept_jacobian_matches_central_differences():
@@ -322,3 +348,18 @@ def jax_points(fam, x, n):
     from objectives.curve import Curve, nodes
 
     return jax.vmap(Curve(fam.boundary, x))(nodes(n))
+
+
+def test_kept_programs_are_evicted_least_recently_used_first(tmp_path):
+    """LRU eviction of kept step programs by modification time (common practice for caches)."""
+    import os
+
+    from deform import programs
+
+    for i in range(5):
+        path = tmp_path / f"p{i}{programs.SUFFIX}"
+        path.write_bytes(b"x")
+        os.utime(path, (1000 + i, 1000 + i))
+    programs._evict(tmp_path, keep=3)
+    assert sorted(p.name for p in tmp_path.iterdir()) == [
+        f"p{i}{programs.SUFFIX}" for i in (2, 3, 4)]

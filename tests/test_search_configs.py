@@ -14,7 +14,8 @@ CONFIGS = sorted((Path(__file__).resolve().parents[1] / "configs").glob("*.toml"
 
 
 @pytest.mark.parametrize("path", CONFIGS, ids=[p.stem for p in CONFIGS])
-def test_config_checks_and_runs_shortened(path, tmp_path, capsys):
+def test_config_checks_and_runs_shortened(path, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("DEFORM_CACHE", str(tmp_path / "cache"))  # the run traces its step once
     assert main(["check", str(path)]) == 0
     config = load_config(path)
     if config.search is None:  # shape-only configs are for `deform measure`

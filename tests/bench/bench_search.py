@@ -47,7 +47,9 @@ KEEP_BIG = '["area", "perimeter", "heat_dirichlet", "bouncing_balls", "orbit_len
            '"orbit_traces"]'
 
 
-def _prepared(text):
+def _prepared(text, keep_program=False):
+    """Prepare as a run does (``keep_program``: with the on-disk step program keyed by the
+    config text, as `deform run` does)."""
     import jax
 
     from deform.config import parse_config
@@ -56,7 +58,7 @@ def _prepared(text):
     cfg = parse_config(text)
     problem = build_problem(cfg.shape, cfg.search, cfg.invariants)
     t0 = time.perf_counter()
-    prepared = prepare(problem, cfg.search)
+    prepared = prepare(problem, cfg.search, identity=text if keep_program else None)
     t_prepare = time.perf_counter() - t0
     t0 = time.perf_counter()
     state, info = prepared.update(prepared.ctx, prepared.state)
@@ -113,7 +115,7 @@ def compile_only(text: str) -> None:
     from deform.runtime import configure_jax
 
     configure_jax()
-    _, _, t_prepare, t_first = _prepared(text)
+    _, _, t_prepare, t_first = _prepared(text, keep_program=True)
     print(f"{t_prepare:.3f} {t_first:.3f}")
 
 
