@@ -294,8 +294,8 @@ def birkhoff_invariants(curve: Curve, bounce_params: Array, order: int = 3, *,
     """Birkhoff invariants τ₁..τ_order of the periodic orbit through ``bounce_params``.
 
     ``bounce_params`` t_1..t_n (n ≥ 2) are refined to the nearby critical point of the
-    periodic length (Newton, ``newton_steps``). Status: ``degenerate`` if |tr DP| ≥ 2 (not
-    elliptic: angle and τ are NaN) or the orbit's Hessian is singular, ``resonant`` if
+    periodic length (Newton, ``newton_steps``). Status: ``not_elliptic`` if |tr DP| ≥ 2
+    (angle and τ are NaN), ``degenerate`` if the orbit's Hessian is singular, ``resonant`` if
     e^{imα} = 1 for some m ≤ 2·order + 2 (τ_k with m ≤ 2k + 2 are NaN),
     ``orbit_not_converged``, ``nonfinite``. Jittable with ``order`` static.
     """
@@ -311,7 +311,7 @@ def birkhoff_invariants(curve: Curve, bounce_params: Array, order: int = 3, *,
     allowed = (resonance == 0) | (resonance > 2 * np.arange(1, order + 1) + 2)
     tau = jnp.where(allowed & elliptic, tau, jnp.nan)
     angle = jnp.where(elliptic, angle, jnp.nan)
-    nf_status = jnp.where(~elliptic, code(Status.degenerate),
+    nf_status = jnp.where(~elliptic, code(Status.not_elliptic),
                           jnp.where(resonance > 0, code(Status.resonant), code(Status.ok)))
     length = periodic_length(curve, t)
     status = combine(orbit_status, nf_status)

@@ -15,14 +15,15 @@ import jax.numpy as jnp
 class Status(enum.IntEnum):
     ok = 0
     degenerate = 1            # det(I − Pᵐ) ≈ 0, a family of orbits, or a singular Jacobian
-    resonant = 2              # mα ∈ 2πℤ for a small m where a normal form is asked for
-    branch_changed = 3        # a tracked orbit is no longer the one it was seeded as
-    orbit_not_converged = 4   # gradient residual of a periodic orbit above tolerance
-    orbit_leaves_domain = 5   # a chord of the orbit leaves the domain (non-convex shapes)
-    not_convex = 6            # convexity was required and min κ ≤ 0
-    self_intersection = 7     # the boundary is not a simple closed curve
-    solver_failed = 8         # an inner solver (eigenvalues, corrector) failed otherwise
-    nonfinite = 9             # NaN or inf in a result
+    not_elliptic = 2          # |tr P| ≥ 2 where an elliptic orbit's normal form is asked for
+    resonant = 3              # mα ∈ 2πℤ for a small m where a normal form is asked for
+    branch_changed = 4        # a tracked orbit is no longer the one it was seeded as
+    orbit_not_converged = 5   # gradient residual of a periodic orbit above tolerance
+    orbit_leaves_domain = 6   # a chord of the orbit leaves the domain (non-convex shapes)
+    not_convex = 7            # convexity was required and min κ ≤ 0
+    self_intersection = 8     # the boundary is not a simple closed curve
+    solver_failed = 9         # an inner solver (eigenvalues, corrector) failed otherwise
+    nonfinite = 10            # NaN or inf in a result
 
     @property
     def message(self) -> str:
@@ -32,6 +33,7 @@ class Status(enum.IntEnum):
 _MESSAGES = {
     Status.ok: "ok",
     Status.degenerate: "degenerate: orbit family or singular linearization",
+    Status.not_elliptic: "the orbit is not elliptic (|trace| >= 2): no elliptic normal form",
     Status.resonant: "resonant rotation angle: normal form not defined to this order",
     Status.branch_changed: "a tracked orbit changed branch",
     Status.orbit_not_converged: "periodic orbit solver did not converge",
