@@ -280,10 +280,98 @@ def _newton_direction(curve, t, q):
 
 
 def _grad_hess(curve, t, q):
-    grad, hess, active = _length_derivatives(curve, t, q)
-    # Padded slots: decoupled, below every active eigenvalue, zero gradient.
+    return _grad_hess_from(billiard.bounce_jets(curve, t), q)
+
+
+def _grad_hess_from(jets, q):
+    """(∇W, ∇²W) at the bounces with these jets; padded slots are decoupled, below every
+    active eigenvalue, with zero gradient."""
+    chords = billiard.chords_from_jets(jets, q)
+    grad = billiard.length_gradient_from(jets, chords, q)
+    hess = billiard.length_hessian_from(jets, chords, q)
     pad = -(1.0 + 2.0 * jnp.max(jnp.abs(hess)))
+    active = jnp.arange(grad.shape[0]) < q
     return grad, hess + jnp.diag(jnp.where(active, 0.0, pad))
+
+
+def _following_step(curve, t, q, target, max_step):
+    """One clipped eigenvector-following step of :func:`_newton` from t."""
+    grad, hess = _grad_hess(curve, t, q)
+    return _clip_step(_eigen_step(grad, hess, target), max_step)
+
+
+def _clip_step(delta, max_step):
+    return jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
+
+
+def _eigen_step(grad, hess, target):
+    """The unclipped step of :func:`_newton` from the Hessian eigendecomposition."""
+    size = grad.shape[0]
+    rank = jnp.arange(size)
+    lam, vec = jnp.linalg.eigh(hess)
+    # Padded slots have the lowest eigenvalues and zero gradient; they never matter.
+    wanted = jnp.where(target == 0, -1.0,
+                       jnp.where(target == 1, jnp.where(rank == size - 1, 1.0, -1.0),
+                                 jnp.sign(lam)))
+    eps = 1e-10 * jnp.max(jnp.abs(lam))
+    return -(vec * (1.0 / (wanted * (jnp.abs(lam) + eps)))) @ (vec.T @ grad)
+
+
+PIVOT_TOL = 1e-6
+"""Smallest |pivot| / max|H| for which the LDLᵀ Newton step replaces the eigenvector step."""
+
+
+def _pivot_step(grad, hess, q, target):
+    """(−H⁻¹∇W, usable) by an unpivoted LDLᵀ factorization of the Hessian.
+
+    H is cyclic tridiagonal on the q active slots (diagonal, H[k, k+1], the corner H[0, q−1])
+    and diagonal on the padding, so eliminating slots 0..q−2 in order only fills the last
+    column: the pivots are d_k = H_kk − H_{k−1,k}²/d_{k−1} with the border w_k = H[k, q−1] −
+    (H_{k−1,k}/d_{k−1}) w_{k−1}, and the last pivot is H_{q−1,q−1} − Σ w_k²/d_k (O(q) work).
+    By Sylvester's law of inertia the signs of the pivots are the signs of the eigenvalues, so
+    when H has the inertia the target wants (no positive eigenvalue for a max, exactly one for
+    a min-max, any for a critical point) the step of :func:`_eigen_step` is this Newton step
+    up to its 10⁻¹⁰ regularization. ``usable`` is false when the inertia is wrong or a pivot is
+    below ``PIVOT_TOL``·max|H| (near-singular H, or growth of the unpivoted factors); the
+    caller then takes the eigenvector step."""
+    size = grad.shape[0]
+    diag = jnp.diagonal(hess)
+    upper = jnp.diagonal(hess, 1)
+    border0 = hess[:, q - 1]
+    pivots, border, y = [], [], []
+    closing, solved = 0.0, 0.0
+    for k in range(size):
+        inner, final = k <= q - 2, k == q - 1
+        if k == 0:
+            d, w, y_k = diag[0], border0[0], grad[0]
+        else:
+            ell = jnp.where(inner, upper[k - 1] / pivots[k - 1], 0.0)
+            d = diag[k] - ell * upper[k - 1]
+            w = border0[k] - ell * border[k - 1]
+            y_k = grad[k] - ell * y[k - 1]
+        d = jnp.where(final, diag[k] - closing, d)
+        y_k = jnp.where(final, grad[k] - solved, jnp.where(inner, y_k, grad[k]))
+        d = jnp.where(inner | final, d, diag[k])
+        w = jnp.where(inner, w, 0.0)
+        closing = closing + w * w / jnp.where(inner, d, 1.0)
+        solved = solved + w * y_k / jnp.where(inner, d, 1.0)
+        pivots.append(d)
+        border.append(w)
+        y.append(y_k)
+    pivots = jnp.stack(pivots)
+    rank = jnp.arange(size)
+    x_last = jnp.sum(jnp.where(rank == q - 1, jnp.stack(y) / pivots, 0.0))
+    x = [None] * size
+    for k in reversed(range(size)):
+        inner = k <= q - 2
+        ahead = x[k + 1] if k + 1 < size else 0.0
+        link = jnp.where(k + 1 <= q - 2, upper[k] / pivots[k], 0.0) if k + 1 < size else 0.0
+        value = y[k] / pivots[k]
+        x[k] = jnp.where(inner, value - link * ahead - border[k] / pivots[k] * x_last, value)
+    positive = jnp.sum(pivots > 0)
+    inertia = jnp.where(target == 0, positive == 0, jnp.where(target == 1, positive == 1, True))
+    tiny = jnp.min(jnp.abs(pivots)) < PIVOT_TOL * jnp.max(jnp.abs(hess))
+    return -jnp.stack(x), inertia & ~tiny
 
 
 def _newton(curve, t, q, steps, max_step, target=-1, tol=NEWTON_TOL):
@@ -312,19 +400,7 @@ def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON
     bitwise, ends the loop at once with the state the run would reach after ``horizon`` steps:
     the iteration depends on t alone, so it alternates between the two points forever (clipped
     steps that flip sign on a seed that cannot settle)."""
-    size = t.shape[0]
-    rank = jnp.arange(size)
-
-    def step(t):
-        grad, hess = _grad_hess(curve, t, q)
-        lam, vec = jnp.linalg.eigh(hess)
-        # Padded slots have the lowest eigenvalues and zero gradient; they never matter.
-        wanted = jnp.where(target == 0, -1.0,
-                           jnp.where(target == 1, jnp.where(rank == size - 1, 1.0, -1.0),
-                                     jnp.sign(lam)))
-        eps = 1e-10 * jnp.max(jnp.abs(lam))
-        delta = -(vec * (1.0 / (wanted * (jnp.abs(lam) + eps)))) @ (vec.T @ grad)
-        return jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
+    step = partial(_following_step, curve, q=q, target=target, max_step=max_step)
 
     def going(state):
         i, size = state[0], state[2]
@@ -341,25 +417,142 @@ def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON
 
     def body_cycles(state):
         i, t, _, before = state
-        delta = step(t)
-        new = t + delta
-        cycle = jnp.all(new == before)
-        even = (horizon - (i + 1)) % 2 == 0
-        return (jnp.where(cycle, horizon, i + 1), jnp.where(cycle & ~even, t, new),
-                jnp.max(jnp.abs(delta)), t)
+        return _cycle_update(i, t, before, step(t), horizon)
 
     # ``before`` starts as NaN: no cycle can be recognised on the first step of a call.
     i, t, last, _ = jax.lax.while_loop(going, body_cycles, start + (jnp.full_like(t, jnp.nan),))
     return i, t, last
 
 
-@jax.jit
-def _newton_batch(curve, t, q, target, count, last, steps, max_step, horizon):
-    """:func:`_newton_resume` over a batch of seeds, each with its own step clip ``max_step``
-    (``steps`` and ``horizon`` are traced: one compilation)."""
-    return jax.vmap(lambda t, q, target, count, last, max_step: _newton_resume(
-        curve, t, q, target, count, last, steps, max_step, horizon=horizon))(
-            t, q, target, count, last, max_step)
+def _cycle_update(i, t, before, delta, horizon):
+    """State (i, t, |δ|, t_prev) after the step δ from t, jumping to the end of the budget
+    ``horizon`` on an exact 2-cycle (the iterate ``before`` t comes back)."""
+    new = t + delta
+    cycle = jnp.all(new == before)
+    even = (horizon - (i + 1)) % 2 == 0
+    return (jnp.where(cycle, horizon, i + 1), jnp.where(cycle & ~even, t, new),
+            jnp.max(jnp.abs(delta)), t)
+
+
+def _lane_steps(curve, t, q, target, max_step, valid):
+    """The steps of :func:`_newton` for a batch of lanes: the LDLᵀ Newton step where the
+    Hessian has the wanted inertia, the eigenvector step elsewhere. The (costly) eigenvalue
+    problems are solved only for the lanes that need them, a few gathered lanes at a time (one
+    small compiled eigensolver instead of one per batch size)."""
+    lanes, slots = t.shape
+    # One flat batch of curve jets: a nested (lane, slot) vmap evaluated them ~30 % slower.
+    jets = jax.vmap(partial(billiard._jet2, curve))(t.reshape(-1))
+    jets = billiard.Jets(*(a.reshape(lanes, slots, 2) for a in jets))
+    grad, hess = jax.vmap(_grad_hess_from)(jets, q)
+    delta, usable = jax.vmap(_pivot_step)(grad, hess, q, target)
+    few = max(1, lanes // 4)
+
+    def fix(state):
+        delta, need = state
+        pick = jnp.nonzero(need, size=few, fill_value=lanes)[0]
+        part = jnp.minimum(pick, lanes - 1)
+        sub = jax.vmap(_eigen_step)(grad[part], hess[part], target[part])
+        return delta.at[pick].set(sub, mode="drop"), need.at[pick].set(False, mode="drop")
+
+    delta, _ = jax.lax.while_loop(lambda state: jnp.any(state[1]), fix,
+                                  (delta, valid & ~usable))
+    return jax.vmap(_clip_step)(delta, max_step)
+
+
+class _Runs(NamedTuple):
+    """Per-seed Newton state: steps taken, iterate, last step size, previous iterate, finished
+    (step budget spent, converged, or merged into another seed)."""
+
+    taken: Array
+    t: Array
+    last: Array
+    before: Array
+    done: Array
+
+
+def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes, rest):
+    """Advance the unfinished seeds of ``runs`` to ``cap`` steps each on ``lanes`` parallel
+    lanes until at most ``rest`` of them are still short of it; a lane whose seed stops takes
+    the next waiting seed at once.
+
+    Each seed follows the iteration of :func:`_newton_resume` (``horizon`` = ``steps``); only
+    the batching differs: a vmapped loop over a fixed batch runs until its slowest seed stops,
+    whereas here the lanes stay busy as long as seeds wait."""
+    count = runs.t.shape[0]
+    waiting = ~runs.done & (runs.taken < cap)
+    order = jnp.nonzero(waiting, size=count, fill_value=count)[0]
+    pending = jnp.sum(waiting)
+    idx = jnp.minimum(order[:lanes], count - 1)
+    valid = jnp.arange(lanes) < pending
+
+    def load(runs, idx):
+        return runs.taken[idx], runs.t[idx], runs.last[idx], runs.before[idx]
+
+    def unfinished(state):
+        _, valid, _, head, _ = state
+        return jnp.sum(valid) + pending - head > rest
+
+    def body(state):
+        idx, valid, lane, head, runs = state
+        i, t, _, before = lane
+        delta = _lane_steps(curve, t, q[idx], target[idx], max_step[idx], valid)
+        lane = jax.vmap(_cycle_update, in_axes=(0, 0, 0, 0, None))(i, t, before, delta, steps)
+        ended = ~((lane[0] < steps) & (lane[2] > NEWTON_TOL))
+        stopped = valid & (ended | (lane[0] >= cap))
+        # Every busy lane is written back, so the stored state is current when a stage ends.
+        into = jnp.where(valid, idx, count)
+        runs = _Runs(*(field.at[into].set(value, mode="drop")
+                       for field, value in zip(runs[:4], lane)),
+                     runs.done.at[jnp.where(valid & ended, idx, count)].set(True, mode="drop"))
+        slot = head + jnp.cumsum(stopped) - 1
+        take = stopped & (slot < pending)
+        idx = jnp.where(take, order[jnp.minimum(slot, count - 1)], idx)
+        lane = tuple(jnp.where(take.reshape((-1,) + (1,) * (a.ndim - 1)), a, b)
+                     for a, b in zip(load(runs, idx), lane))
+        return (idx, jnp.where(stopped, take, valid), lane,
+                jnp.minimum(head + jnp.sum(stopped), pending), runs)
+
+    state = (idx, valid, load(runs, idx), jnp.minimum(lanes, pending), runs)
+    return jax.lax.while_loop(unfinished, body, state)[4]
+
+
+def _merge(t, q, target, rep, decimals):
+    """:func:`_representatives` inside jit: each representative (rep[k] = k) maps to the first
+    representative with the same q, target and bounce set rounded to ``decimals``; composed with
+    ``rep``."""
+    count, slots = t.shape
+    own = rep == jnp.arange(count)
+    bounces = jnp.sort(jnp.where(jnp.arange(slots)[None, :] < q[:, None],
+                                 jnp.mod(t, 2 * jnp.pi), jnp.inf), axis=1)
+    keys = jnp.round(bounces, decimals)
+    same = (jnp.all(keys[:, None, :] == keys[None, :, :], axis=2)
+            & (q[:, None] == q[None, :]) & (target[:, None] == target[None, :]) & own[None, :])
+    first = jnp.where(own, jnp.argmax(same, axis=1), jnp.arange(count))
+    return first[rep]
+
+
+@partial(jax.jit, static_argnames=("steps", "lanes"))
+def _newton_queue(curve, t, q, target, max_step, active, caps, steps, lanes=8):
+    """:func:`_newton` with 2-cycle ends (budget ``steps``) for every seed where ``active``, in
+    one call on ``lanes`` parallel lanes.
+
+    Phases advance every moving seed to the step caps ``caps`` (the last is the budget); after
+    each, seeds that reached the same configuration to 10⁻⁶ continue as one (``rep``, the seed
+    each one follows). The phases are a loop, so the step is compiled once. Returns (t, rep)."""
+    count = t.shape[0]
+    runs = _Runs(jnp.zeros(count, jnp.int32), t, jnp.full(count, jnp.inf),
+                 jnp.full_like(t, jnp.nan), ~active)
+
+    def phase(k, state):
+        runs, rep = state
+        # As if each phase were a fresh call: no 2-cycle is recognised on its first step.
+        runs = runs._replace(before=jnp.full_like(t, jnp.nan))
+        runs = _queue_stage(curve, runs, q, target, max_step, caps[k], steps, lanes, 0)
+        rep = _merge(runs.t, q, target, rep, MERGE_DECIMALS)
+        return runs._replace(done=runs.done | (rep != jnp.arange(count))), rep
+
+    runs, rep = jax.lax.fori_loop(0, caps.shape[0], phase, (runs, jnp.arange(count)))
+    return runs.t, rep
 
 
 @partial(jax.jit, static_argnames=("iterates", "resonance_order"))
@@ -641,11 +834,10 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     of the distinct results. Returns (batched data, representative index per seed): seeds that
     converged to the same configuration (same q and target, same bounce set) share one entry.
 
-    The Newton loop runs in fixed-size chunks over phases of increasing step caps, each phase
-    only on the seeds still moving: a vmapped loop runs until its slowest seed stops, so one
-    slow seed would otherwise hold a whole batch for every step. After each phase, seeds that
-    have reached the same configuration (to 10⁻⁶, i.e. already in one Newton basin) continue
-    as one."""
+    The Newton loop is one compiled call (:func:`_newton_queue`): phases of increasing step
+    caps, each only on the seeds still moving, fed through a queue of lanes so one slow seed
+    never holds a batch. After each phase, seeds that have reached the same configuration (to
+    10⁻⁶, i.e. already in one Newton basin) continue as one."""
     count = len(t_seeds)
     t = np.zeros((count, slots))
     for k, ts in enumerate(t_seeds):
@@ -653,19 +845,14 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
         t[k, len(ts):] = ts[0]
     qs = np.asarray(q_seeds, dtype=np.int32)
     targets = np.asarray(targets, dtype=np.int32)
-    taken = np.zeros(count, dtype=np.int32)
-    last = np.full(count, np.inf)
-    moving = rep = np.arange(count)
-    for cap, size in tuple((c, k) for c, k in NEWTON_PHASES if c < steps) + ((steps, TAIL_CHUNK),):
-        for idx in _chunks(moving, size, TAIL_CHUNK):
-            out = _newton_batch(curve, t[idx], qs[idx], targets[idx], taken[idx], last[idx],
-                                cap, max_step[idx], steps)
-            taken[idx], t[idx], last[idx] = (np.asarray(o) for o in out)
-        rep = _representatives(t, qs, targets, np.unique(rep), MERGE_DECIMALS)[rep]
-        moving = moving[(rep[moving] == moving) & (taken[moving] < steps)
-                        & (last[moving] > NEWTON_TOL)]
-        if moving.size == 0:
-            break
+    # Every call passes the same number of caps (repeating the budget): one compilation.
+    caps = np.asarray([min(c, steps) for c in NEWTON_CAPS] + [steps], dtype=np.int32)
+    # One padded size for up to QUEUE seeds, so one compilation serves (almost) every call.
+    idx = np.minimum(np.arange(max(QUEUE, -(-count // 128) * 128)), count - 1)
+    out = _newton_queue(curve, t[idx], qs[idx], targets[idx], max_step[idx],
+                        np.arange(idx.size) < count, caps, steps)
+    t = np.asarray(out[0])[:count]
+    rep = np.asarray(out[1])[:count]
     rep = _representatives(t, qs, targets, np.unique(rep))[rep]
     distinct = np.unique(rep)
     data = [_data_batch(curve, t[idx], qs[idx], iterates, resonance_order)
@@ -677,23 +864,20 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     return data, where[rep], rep == np.arange(count)
 
 
-SOLVE_CHUNK, TAIL_CHUNK = 32, 8
-"""Seeds per compiled batch (two fixed sizes, so two compilations serve every call): on this
-CPU a batch of 32 costs less per seed than 8 or 128, and 8 costs less per step than 32."""
-NEWTON_PHASES = ((4, SOLVE_CHUNK), (7, SOLVE_CHUNK), (10, SOLVE_CHUNK), (16, TAIL_CHUNK))
-"""(step cap, batch size): after each cap the seeds still moving are regrouped. Most seeds stop
-after 5-9 steps; the few left after 16 rarely converge at all (sliding along the table)."""
+QUEUE = 256
+"""Seeds per Newton call (padded with inactive entries; more seeds take a larger size)."""
+NEWTON_CAPS = (4, 7, 10, 16)
+"""Step counts after which seeds that met continue as one. Most seeds stop after 5-9 steps;
+the few left after 16 rarely converge at all (sliding along the table)."""
+SOLVE_CHUNK = 32
+"""Refined configurations per orbit-data call (one compiled size)."""
 
 
-def _chunks(index: np.ndarray, size: int, tail: int | None = None):
-    """Index arrays of ``size`` entries, the last padded by repeating its first entry (a repeated
-    seed takes no extra steps and its results are written twice, identically). With ``tail``, a
-    remainder of at most 2·tail seeds goes in batches of ``tail`` instead (cheaper per step)."""
+def _chunks(index: np.ndarray, size: int):
+    """Index arrays of ``size`` entries, the last padded by repeating its first entry (its
+    results are written twice, identically)."""
     for lo in range(0, index.size, size):
         part = index[lo:lo + size]
-        if tail is not None and part.size < size and tail < size and part.size <= 2 * tail:
-            yield from _chunks(part, tail)
-            return
         yield np.concatenate([part, np.full(size - part.size, part[0])])
 
 
