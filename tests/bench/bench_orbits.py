@@ -224,7 +224,7 @@ def main() -> None:
     print(f"compile in a fresh process (cold/warm/grad first-call s): {fresh}")
     print(f"same, from the persistent cache (s):                     {cached}")
     if not quick:
-        for seed in (7, 8):
+        for seed in (7, 8, 9):
             agree, count, worst, notes = robustness(seed=seed)
             print(f"robustness (seed {seed}, amplitude 0.25): {agree}/{count} random shapes agree "
                   f"with a 4× finer global search on all {2 * len(orb.rotation_numbers(Q))} "
