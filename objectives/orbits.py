@@ -470,10 +470,9 @@ class _Runs(NamedTuple):
     done: Array
 
 
-def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes, rest):
-    """Advance the unfinished seeds of ``runs`` to ``cap`` steps each on ``lanes`` parallel
-    lanes until at most ``rest`` of them are still short of it; a lane whose seed stops takes
-    the next waiting seed at once.
+def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes):
+    """Advance every unfinished seed of ``runs`` to ``cap`` steps (or its end) on ``lanes``
+    parallel lanes; a lane whose seed stops takes the next waiting seed at once.
 
     Each seed follows the iteration of :func:`_newton_resume` (``horizon`` = ``steps``); only
     the batching differs: a vmapped loop over a fixed batch runs until its slowest seed stops,
@@ -490,7 +489,7 @@ def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes, rest):
 
     def unfinished(state):
         _, valid, _, head, _ = state
-        return jnp.sum(valid) + pending - head > rest
+        return jnp.any(valid) | (head < pending)
 
     def body(state):
         idx, valid, lane, head, runs = state
@@ -499,7 +498,7 @@ def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes, rest):
         lane = jax.vmap(_cycle_update, in_axes=(0, 0, 0, 0, None))(i, t, before, delta, steps)
         ended = ~((lane[0] < steps) & (lane[2] > NEWTON_TOL))
         stopped = valid & (ended | (lane[0] >= cap))
-        # Every busy lane is written back, so the stored state is current when a stage ends.
+        # Every busy lane is written back, so the stored state is current when the phase ends.
         into = jnp.where(valid, idx, count)
         runs = _Runs(*(field.at[into].set(value, mode="drop")
                        for field, value in zip(runs[:4], lane)),
@@ -547,7 +546,7 @@ def _newton_queue(curve, t, q, target, max_step, active, caps, steps, lanes=8):
         runs, rep = state
         # As if each phase were a fresh call: no 2-cycle is recognised on its first step.
         runs = runs._replace(before=jnp.full_like(t, jnp.nan))
-        runs = _queue_stage(curve, runs, q, target, max_step, caps[k], steps, lanes, 0)
+        runs = _queue_stage(curve, runs, q, target, max_step, caps[k], steps, lanes)
         rep = _merge(runs.t, q, target, rep, MERGE_DECIMALS)
         return runs._replace(done=runs.done | (rep != jnp.arange(count))), rep
 
