@@ -584,7 +584,14 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     if carries:
         state = _strongly_typed(init(provisional, key, states, None, None))
     else:
-        values, J_start, states, codes = linearize(x0, states)
+        start_linearize = linearize
+        if identity is not None:  # its program is kept too: this mode runs it at every start
+            states = jax.device_put(states, jax.devices()[0])
+            start_linearize = persistent_jit(
+                lambda x, s: _linearized(problem, x, s), (x0, states),
+                jax.tree_util.tree_structure((0, 0, states, 0)),
+                f"search/{spec.mode}/linearize\n{identity}")
+        values, J_start, states, codes = start_linearize(x0, states)
         state = _strongly_typed(init(provisional, key, states, values, J_start))
     update = _same_types(update)
     # committed like the update's outputs, so later calls hit the same compiled program
