@@ -15,6 +15,7 @@ from typing import Any, Callable, NamedTuple
 
 import jax
 import jax.numpy as jnp
+import numpy as np
 
 from objectives import geometry, heat
 from objectives.curve import Curve
@@ -26,11 +27,19 @@ from .errors import ConfigError
 class Shared(NamedTuple):
     """A warm computation several families read from: ``advance(curve, state) -> (state,
     status)`` runs once per evaluation for all evaluators with an equal ``key`` (which must
-    determine ``init`` too), ``read(state) -> values`` gives each family its entries."""
+    determine ``init`` too), ``read(state) -> values`` gives each family its entries.
+
+    Optional lane structure (e.g. one lane per orbit): ``advance_lanes`` is ``advance`` for a
+    curve whose parameters carry a leading axis with one copy per lane (the leading axis of
+    every state leaf), lane k reading copy k only; ``lanes[j]`` is the lane entry j of ``read``
+    depends on. :func:`linearize_families` then needs one reverse pass per entry of a lane
+    instead of one per entry."""
 
     key: Any
     advance: Callable[[Curve, Any], tuple[Any, Any]]
     read: Callable[[Any], Any]
+    advance_lanes: Callable[[Curve, Any], tuple[Any, Any]] | None = None
+    lanes: tuple[int, ...] | None = None
 
 
 class Evaluator(NamedTuple):
@@ -139,15 +148,17 @@ def linearize_families(evaluators, curve_of: Callable[[Any], Curve], x, states):
     for members in groups.values():
         evs = [evaluators[i] for i in members]
         sts = [states[i] for i in members]
+        if all(ev.shared is not None and ev.shared.lanes is not None for ev in evs):
+            J, (v, st, c) = _lane_jacobian(evs, curve_of, x, sts[0])
+        else:
+            def group_values(p, evs=evs, sts=sts):
+                v, st, c = evaluate_families(evs, curve_of(p), sts)
+                flat = jnp.concatenate(v)
+                return flat, (v, st, c)
 
-        def group_values(p, evs=evs, sts=sts):
-            v, st, c = evaluate_families(evs, curve_of(p), sts)
-            flat = jnp.concatenate(v)
-            return flat, (v, st, c)
-
-        rows = sum(len(ev.labels) for ev in evs)
-        jacobian = jax.jacrev if rows < jnp.size(x) else jax.jacfwd
-        J, (v, st, c) = jacobian(group_values, has_aux=True)(x)
+            rows = sum(len(ev.labels) for ev in evs)
+            jacobian = jax.jacrev if rows < jnp.size(x) else jax.jacfwd
+            J, (v, st, c) = jacobian(group_values, has_aux=True)(x)
         offset = 0
         for k, i in enumerate(members):
             size = v[k].shape[0]
@@ -156,6 +167,34 @@ def linearize_families(evaluators, curve_of: Callable[[Any], Curve], x, states):
             offset += size
     return (jnp.concatenate(values), jnp.concatenate(jacobians), tuple(new_states),
             jnp.stack(codes))
+
+
+def _lane_jacobian(evs, curve_of, x, state):
+    """(J, (values per family, states, codes)) of a shared group with lane structure: the
+    parameters are copied per lane and entry j's row is the gradient on copy lanes[j]; seeds
+    that put the cotangent on the r-th entry of every lane at once give every lane's r-th row
+    in one reverse pass."""
+    shared = evs[0].shared
+    count = jax.tree_util.tree_leaves(state)[0].shape[0]
+
+    def lane_values(x_lanes):
+        st, status = shared.advance_lanes(jax.vmap(curve_of)(x_lanes), state)
+        v = [ev.shared.read(st) for ev in evs]
+        v = [jnp.atleast_1d(u).astype(jnp.float64) for u in v]
+        c = [jnp.max(jnp.atleast_1d(jnp.asarray(finite_or(u, status), dtype=jnp.int32)))
+             for u in v]
+        return jnp.concatenate(v), (v, tuple(st for _ in evs), c)
+
+    lane = np.concatenate([np.asarray(ev.shared.lanes, dtype=int) for ev in evs])
+    rank = np.zeros_like(lane)
+    for k in range(count):
+        rank[lane == k] = np.arange(np.sum(lane == k))
+    flat, pullback, aux = jax.vjp(lane_values, jnp.broadcast_to(x, (count,) + jnp.shape(x)),
+                                  has_aux=True)
+    seeds = jnp.asarray(rank[None, :] == np.arange(rank.max(initial=-1) + 1)[:, None],
+                        dtype=flat.dtype)
+    rows = jax.vmap(pullback)(seeds)[0]            # (rank, lane, parameters)
+    return rows[rank, lane], aux
 
 
 def _integer_option(family: str, key: str, value, low: int, high: int) -> int:

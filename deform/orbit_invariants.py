@@ -70,9 +70,15 @@ def _advance(curve, state):
     return fresh, jnp.max(fresh.status)
 
 
-def _evaluator(labels, select, max_period, iterates, values_fn, selection):
+def _advance_lanes(curves, state):
+    fresh = orb.refine_orbits(curves, state, per_orbit_curves=True)
+    return fresh, jnp.max(fresh.status)
+
+
+def _evaluator(labels, select, max_period, iterates, values_fn, selection, lanes):
     """``selection`` names the orbits ``select`` keeps: families with equal (selection,
-    max_period, iterates) track the same orbits and share one warm solve."""
+    max_period, iterates) track the same orbits and share one warm solve. ``lanes[j]`` is the
+    selected orbit entry j of ``values_fn`` reads (every entry reads one orbit)."""
 
     def init(curve):
         return _to_state(select(orb.find_orbits(curve, max_period, iterates=iterates)))
@@ -82,7 +88,8 @@ def _evaluator(labels, select, max_period, iterates, values_fn, selection):
         values = values_fn(fresh)
         return values, fresh, finite_or(values, status)
 
-    shared = Shared(("orbits", selection, max_period, iterates), _advance, values_fn)
+    shared = Shared(("orbits", selection, max_period, iterates), _advance, values_fn,
+                    _advance_lanes, tuple(lanes))
     return Evaluator(labels, init, evaluate, _recheck(max_period), shared)
 
 
@@ -94,7 +101,7 @@ def _birkhoff_values(name, prefix, values_fn):
         branches = _check_branches(name, branches)
         names, select = _birkhoff_selection(max_period, branches)
         return _evaluator(tuple(f"{prefix}[{n}]" for n in names), select, max_period, 1,
-                          values_fn, ("birkhoff", branches))
+                          values_fn, ("birkhoff", branches), range(len(names)))
 
     return build
 
@@ -118,7 +125,7 @@ def _bouncing_balls(count):
 
     labels = tuple(f"L[bb{k}]" for k in range(count)) + tuple(f"tr[bb{k}]" for k in range(count))
     return _evaluator(labels, select, 2, 1, lambda o: jnp.concatenate([o.length, o.trace]),
-                      ("bouncing", count))
+                      ("bouncing", count), [*range(count), *range(count)])
 
 
 def _wave(max_period, iterates, boundary):
@@ -137,7 +144,8 @@ def _wave(max_period, iterates, boundary):
         return jnp.where(terms.usable, terms.amplitude, 0.0)
 
     return _evaluator(labels, select, max_period, iterates, values,
-                      ("birkhoff", ("max", "minimax")))
+                      ("birkhoff", ("max", "minimax")),
+                      [k for k in range(len(names)) for _ in range(iterates)])
 
 
 register(InvariantFamily(

@@ -1068,9 +1068,9 @@ def _to_set(rows, iterates) -> OrbitSet:
 # Warm path
 
 
-@partial(jax.jit, static_argnames=("newton_steps", "resonance_order"))
+@partial(jax.jit, static_argnames=("newton_steps", "resonance_order", "per_orbit_curves"))
 def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
-                  resonance_order: int = 4) -> OrbitSet:
+                  resonance_order: int = 4, per_orbit_curves: bool = False) -> OrbitSet:
     """Warm path: Newton from the tracked bounce parameters, implicit derivatives (jittable).
 
     At most ``newton_steps`` steps, stopping as soon as every orbit's step is below 1e-14.
@@ -1081,10 +1081,15 @@ def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
     exact first derivatives. Status per orbit: not converged, left its branch (Hessian index
     or cyclic order changed), chord leaving the table (an end with sin θ ≤ 0), degenerate.
     Maslov indices are kept from ``orbits`` (they change only through a degeneracy).
+
+    With ``per_orbit_curves`` the curve's parameters carry a leading axis, one copy per orbit,
+    and orbit k reads copy k only: one reverse pass seeded on every orbit at once then gives
+    each orbit's own parameter gradient (a Jacobian costs a pass per output per orbit, not per
+    output row).
     """
     iterates = orbits.det_iterates.shape[1]
 
-    def one(t, q, index, maslov, branch):
+    def one(curve, t, q, index, maslov, branch):
         target = jnp.where(branch == MAX, 0, jnp.where(branch == MINIMAX, 1, -1))
         t_star = jax.lax.stop_gradient(_newton(curve, jax.lax.stop_gradient(t), q, newton_steps,
                                                0.5, target))
@@ -1107,8 +1112,8 @@ def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
                 status.astype(jnp.int32), degenerate, resonant)
 
     (t, length, mono, tr, kind, angle, lyap, dets, maslov, residual, index, status, degenerate,
-     resonant) = jax.vmap(one)(orbits.t, orbits.q, orbits.hessian_index, orbits.maslov,
-                               orbits.branch)
+     resonant) = jax.vmap(one, in_axes=(0 if per_orbit_curves else None, 0, 0, 0, 0, 0))(
+        curve, orbits.t, orbits.q, orbits.hessian_index, orbits.maslov, orbits.branch)
     return orbits._replace(t=t, length=length, monodromy=mono, trace=tr, kind=kind, angle=angle,
                            lyapunov=lyap, det_iterates=dets, maslov=maslov, residual=residual,
                            hessian_index=index, status=status, degenerate=degenerate,

@@ -214,11 +214,21 @@ def test_shared_warm_solves_equal_separate_evaluations():
     """Families that share one warm solve (orbit lengths, traces, wave amplitudes of the same
     orbits) give through evaluate_families / linearize_families exactly what each gives alone:
     the same values, states and statuses, and Jacobians equal to each family's own forward-mode
-    Jacobian (common practice: a cache must not change results)."""
+    Jacobian (common practice: a cache must not change results). The orbit families declare one
+    lane per orbit, so this also checks the per-lane Jacobian of linearize_families."""
     shape = from_family(parse_shape(Reader(SHAPE_EXAMPLES["polar"], "shape")))
     curve = shape.curve()
-    names = ["orbit_lengths", "area", "orbit_traces", "wave"]
-    evaluators = [invariants.build(n, {"max_period": 3} if n != "area" else {}) for n in names]
+    names = ["orbit_lengths", "area", "orbit_traces", "wave", "bouncing_balls"]
+    options = {"area": {}, "bouncing_balls": {"count": 2}}
+    evaluators = [invariants.build(n, options.get(n, {"max_period": 3})) for n in names]
+    assert all((n == "area") == (ev.shared is None)
+               for n, ev in zip(names, evaluators))
+    assert all(ev.shared.lanes is not None for ev in evaluators if ev.shared is not None)
+    # every registered family with lanes is among those checked here
+    with_lanes = {n for n in invariants.REGISTRY
+                  if (ev := invariants.build(n, CHEAP_OPTIONS.get(n, {}))).shared is not None
+                  and ev.shared.lanes is not None}
+    assert with_lanes <= set(names), with_lanes - set(names)
     assert evaluators[0].shared.key == evaluators[2].shared.key != evaluators[3].shared.key
     states = invariants.init_families(evaluators, curve)
     assert states[0] is states[2]
