@@ -32,7 +32,7 @@ import optax
 
 from objectives import geometry
 from objectives.curve import Curve, nodes
-from objectives.distance import shape_distance
+from objectives.distance import DistanceReference, distance_reference, distance_to
 from objectives.status import Status, code, combine
 
 from . import invariants as registry
@@ -63,6 +63,8 @@ class SearchState(NamedTuple):
     values: jax.Array          # tracked values at params (continuation), empty otherwise
     jacobian: jax.Array        # their Jacobian ∂values/∂x at params (continuation)
     linearized: jax.Array      # values and jacobian hold the linearization at params (bool)
+    move_value: jax.Array      # distance move objective D² at params (continuation), else 0
+    move_gradient: jax.Array   # its gradient ∂D²/∂x (continuation, distance move), else empty
 
 
 class StepInfo(NamedTuple):
@@ -89,6 +91,7 @@ class Context(NamedTuple):
     targets: jax.Array
     scales: jax.Array
     weights: jax.Array
+    reference: DistanceReference   # the start's side of D (distance move), else empty
 
 
 def step_weights(family: ShapeFamily, smoothness: float) -> np.ndarray:
@@ -208,8 +211,7 @@ def _move_quantity(problem: Problem, ctx: Context, x, values):
 def _move_objective(problem: Problem, ctx: Context, x, states):
     """Objective to increase: D² (smooth at the start) or −½(q − target)²."""
     if problem.move_kind == "distance":
-        return shape_distance(problem.curve(ctx.start), problem.curve(x),
-                              points=problem.distance_points, smooth=True)
+        return distance_to(ctx.reference, problem.curve(x), smooth=True)
     if problem.move_kind == "coefficient":
         q = x[problem.move_index]
     else:
@@ -283,6 +285,7 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
     """
     cs = spec.continuation
     newton = cs.corrector == "newton"
+    distance = problem.move_kind == "distance"
     linearize = linearize or (lambda x, states: _linearized(problem, x, states))
 
     def init(ctx: Context, key, evaluator_states, values, jacobian) -> SearchState:
@@ -297,7 +300,8 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
             tangent=jnp.zeros(n), step_size=jnp.asarray(cs.step_size),
             rejections=jnp.asarray(0, jnp.int32), multipliers=jnp.zeros(problem.n_kept),
             opt_state=(), evaluator_states=evaluator_states, values=jnp.asarray(values),
-            jacobian=jnp.asarray(jacobian), linearized=jnp.asarray(linearized))
+            jacobian=jnp.asarray(jacobian), linearized=jnp.asarray(linearized),
+            move_value=jnp.asarray(0.0), move_gradient=jnp.zeros(n if distance else 0))
 
     def update(ctx: Context, state: SearchState):
         TRACES["continuation"] += 1
@@ -310,9 +314,9 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
         # all linear algebra in the weighted coordinates y (x = x₀ + W y)
         projector, pinv_x, _, null_dim = _null_space(kept_J(J_x), cs.rank_tolerance)
         key, sub = jax.random.split(state.key)
-        if problem.move_kind == "distance":
-            objective, move_grad = jax.value_and_grad(
-                lambda p: _move_objective(problem, ctx, p, states))(x)
+        if distance:
+            # carried from the step that reached x (the priming pass computes it at the start)
+            objective, move_grad = state.move_value, state.move_gradient
         else:
             q, dq = _target_quantity(problem, x, values_x, J_x)
             objective, move_grad = -0.5 * (q - problem.move_target) ** 2, -(
@@ -392,7 +396,8 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
                       jnp.asarray(0, jnp.int32), jnp.asarray(0, jnp.int32),
                       jnp.asarray(jnp.inf), jnp.asarray(False), jnp.asarray(False))
         end = jax.lax.while_loop(go_on, visit, start)
-        x_new, values, iterations = end.p, end.values, end.corrections
+        # the priming pass only linearizes at x (its corrections used provisional targets)
+        x_new, values, iterations = jnp.where(prime, x, end.p), end.values, end.corrections
         r = kept(values)
         residual = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
         converged = (residual <= cs.tolerance) & end.fresh & ~end.failed
@@ -404,11 +409,13 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
         accepted = (status == int(Status.ok)) & ~prime
         # a step past an extremum of the move objective is kept (it is a valid point of the
         # set) but halves the step, so the search settles instead of oscillating
-        if problem.move_kind == "distance":
-            new_objective = _move_objective(problem, ctx, x_new, end.states)
+        if distance:
+            new_objective, new_gradient = jax.value_and_grad(
+                lambda p: _move_objective(problem, ctx, p, end.states))(x_new)
         else:
             q_new = _move_quantity(problem, ctx, x_new, values)
             new_objective = -0.5 * (q_new - problem.move_target) ** 2
+            new_gradient = state.move_gradient
         improved = new_objective > objective
         factor = jnp.where(iterations <= 3, cs.grow, jnp.where(iterations <= 6, 1.0, 1 / cs.grow))
         grown = jnp.where(improved, jnp.minimum(state.step_size * factor, cs.max_step),
@@ -422,10 +429,13 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
             rejections=jnp.where(accepted, 0, state.rejections + 1),
             multipliers=state.multipliers, opt_state=(),
             evaluator_states=pick(end.states, states), values=pick(values, values_x),
-            jacobian=pick(end.jacobian, J_x), linearized=jnp.asarray(True))
+            jacobian=pick(end.jacobian, J_x), linearized=jnp.asarray(True),
+            move_value=pick(new_objective, state.move_value),
+            move_gradient=pick(new_gradient, state.move_gradient))
         new_state = jax.tree_util.tree_map(lambda u, v: jnp.where(prime, u, v), state._replace(
             evaluator_states=end.states, values=values, jacobian=end.jacobian,
-            linearized=jnp.asarray(True)), new_state)
+            linearized=jnp.asarray(True), move_value=new_objective,
+            move_gradient=new_gradient), new_state)
         info = StepInfo(accepted, status, end.codes, x_new, values, r, residual,
                         _move_quantity(problem, ctx, x_new, values), jnp.asarray(jnp.nan), h,
                         iterations, null_dim)
@@ -486,7 +496,8 @@ def make_penalty(problem: Problem, spec: SearchSpec, linearize: Callable | None 
             step_size=jnp.asarray(1.0), rejections=jnp.asarray(0, jnp.int32),
             multipliers=jnp.zeros(problem.n_kept), opt_state=tx.init(x),
             evaluator_states=evaluator_states, values=jnp.zeros(0), jacobian=jnp.zeros(0),
-            linearized=jnp.asarray(False))
+            linearized=jnp.asarray(False), move_value=jnp.asarray(0.0),
+            move_gradient=jnp.zeros(0))
 
     def update(ctx: Context, state: SearchState):
         TRACES["penalty"] += 1
@@ -525,7 +536,8 @@ def make_penalty(problem: Problem, spec: SearchSpec, linearize: Callable | None 
             multipliers=pick(multipliers, state.multipliers),
             opt_state=pick(opt_state, state.opt_state),
             evaluator_states=pick(states_new, states), values=state.values,
-            jacobian=state.jacobian, linearized=state.linearized)
+            jacobian=state.jacobian, linearized=state.linearized, move_value=state.move_value,
+            move_gradient=state.move_gradient)
         status = jnp.where(accepted | (status != int(Status.ok)), status, code(Status.nonfinite))
         info = StepInfo(accepted, status, codes, candidate, values, r, residual,
                         _move_quantity(problem, ctx, candidate, values), jnp.asarray(jnp.nan),
@@ -579,7 +591,9 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     init, update = MODES[spec.mode](problem, spec, linearize)
     key = named_keys(spec.seed, ("search",))["search"]
     # targets and scales are arguments, not constants: these stand in until the start is known
-    provisional = Context(x0, jnp.zeros(problem.n_kept), jnp.ones(problem.n_kept), weights)
+    reference = start_reference(problem)
+    provisional = Context(x0, jnp.zeros(problem.n_kept), jnp.ones(problem.n_kept), weights,
+                          reference)
     carries = CARRIES_LINEARIZATION[spec.mode]
     if carries:
         state = _strongly_typed(init(provisional, key, states, None, None))
@@ -610,7 +624,7 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     values = np.asarray(values)
     targets = values[:problem.n_kept]
     scales = np.maximum(np.abs(targets), spec.scale_floor)
-    ctx = Context(x0, jnp.asarray(targets), jnp.asarray(scales), weights)
+    ctx = Context(x0, jnp.asarray(targets), jnp.asarray(scales), weights, reference)
     J = np.asarray(J_start)[:problem.n_kept] / scales[:, None]
     sv = np.linalg.svd(J * np.asarray(weights), compute_uv=False)
     tol = spec.continuation.rank_tolerance * (sv[0] if sv.size and sv[0] > 0 else 1.0)
@@ -663,11 +677,20 @@ def unflatten_state(template: SearchState, vector: np.ndarray) -> SearchState:
     return jax.device_put(jax.tree_util.tree_unflatten(treedef, out), jax.devices()[0])
 
 
+def start_reference(problem: Problem) -> DistanceReference:
+    """The start shape's side of the distance D (empty unless the move is the distance)."""
+    if problem.move_kind != "distance":
+        return DistanceReference(jnp.zeros(0, jnp.complex128), jnp.zeros(0, jnp.complex128))
+    return _reference(problem.curve(jnp.asarray(problem.start)), problem.distance_points)
+
+
+_reference = jax.jit(distance_reference, static_argnames=("points",))
+
+
 def distance_meter(problem: Problem) -> Callable[[Any], float]:
-    """Jitted x ↦ exact isometry-invariant distance D(start, x) (objectives.distance)."""
-    start = problem.curve(jnp.asarray(problem.start))
-    meter = jax.jit(lambda x: shape_distance(start, problem.curve(x),
-                                             points=problem.distance_points))
+    """Jitted x ↦ exact isometry-invariant distance D(x, start) (objectives.distance)."""
+    reference = _reference(problem.curve(jnp.asarray(problem.start)), problem.distance_points)
+    meter = jax.jit(lambda x: distance_to(reference, problem.curve(x)))
     return lambda params: float(meter(jnp.asarray(params)))
 
 

@@ -18,6 +18,8 @@ wherever the optimal alignment is unique, which is what an optimizer needs.
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import jax
 import jax.numpy as jnp
 
@@ -71,17 +73,38 @@ def _aligned_residual(a_hat: Array, b_hat: Array, k: Array, oversample: int) -> 
     return jnp.sum((residual * jnp.conj(residual)).real)
 
 
-def shape_distance(first: Curve, second: Curve, points: int = DISTANCE_POINTS,
-                   resolution: int = DEFAULT_RESOLUTION, smooth: bool = False) -> Array:
-    """Isometry-invariant L² distance D(A, B) (D² if ``smooth``); see the module docstring."""
-    a = _arclength_samples(first, points, resolution)
-    b = _arclength_samples(second, points, resolution)
+class DistanceReference(NamedTuple):
+    """One side of D, ready for :func:`distance_to`: the normalized Fourier coefficients of the
+    centred arclength samples of a curve and of its reflection."""
+
+    direct: Array
+    reflected: Array
+
+
+def distance_reference(curve: Curve, points: int = DISTANCE_POINTS,
+                       resolution: int = DEFAULT_RESOLUTION) -> DistanceReference:
+    """The part of D(curve, ·) that depends on ``curve`` only (compute once, compare many)."""
+    b = _arclength_samples(curve, points, resolution)
     b_reflected = jnp.conj(jnp.roll(b[::-1], 1))
+    return DistanceReference(jnp.fft.fft(b) / points, jnp.fft.fft(b_reflected) / points)
+
+
+def distance_to(reference: DistanceReference, curve: Curve,
+                resolution: int = DEFAULT_RESOLUTION, smooth: bool = False) -> Array:
+    """D(curve, reference curve) (D² if ``smooth``), with the reference's point count."""
+    points = reference.direct.shape[0]
+    a_hat = jnp.fft.fft(_arclength_samples(curve, points, resolution)) / points
     k = jnp.fft.fftfreq(points, 1.0 / points)
-    a_hat = jnp.fft.fft(a) / points
-    d2 = jnp.min(jnp.stack([
-        _aligned_residual(a_hat, jnp.fft.fft(bb) / points, k, 8) for bb in (b, b_reflected)]))
+    d2 = jnp.min(jnp.stack([_aligned_residual(a_hat, b_hat, k, 8)
+                            for b_hat in (reference.direct, reference.reflected)]))
     if smooth:
         return d2
     positive = d2 > 0
     return jnp.where(positive, jnp.sqrt(jnp.where(positive, d2, 1.0)), 0.0)
+
+
+def shape_distance(first: Curve, second: Curve, points: int = DISTANCE_POINTS,
+                   resolution: int = DEFAULT_RESOLUTION, smooth: bool = False) -> Array:
+    """Isometry-invariant L² distance D(A, B) (D² if ``smooth``); see the module docstring."""
+    return distance_to(distance_reference(second, points, resolution), first, resolution,
+                       smooth)
