@@ -263,15 +263,15 @@ def _unit(v):
 
 def _null_space(J, rank_tolerance):
     """SVD pieces: projector onto null(J), pseudo-inverse J⁺, rank and null dimension."""
-    m, n = J.shape
-    U, S, Vt = jnp.linalg.svd(J, full_matrices=True)
-    k = S.shape[0]
+    n = J.shape[1]
+    # the thin SVD suffices: null(J) is the complement of the in-rank right singular vectors
+    U, S, Vt = jnp.linalg.svd(J, full_matrices=False)
     in_rank = S > rank_tolerance * jnp.maximum(S[0], 1e-300)
-    null_mask = jnp.concatenate([~in_rank, jnp.ones(n - k, dtype=bool)]) if n > k else ~in_rank
-    projector = Vt.T @ (null_mask[:, None].astype(J.dtype) * Vt)
+    rank = jnp.sum(in_rank)
+    projector = jnp.eye(n, dtype=J.dtype) - Vt.T @ (in_rank[:, None].astype(J.dtype) * Vt)
     inv_s = jnp.where(in_rank, 1.0 / jnp.where(in_rank, S, 1.0), 0.0)
-    pinv = Vt[:k].T @ (inv_s[:, None] * U[:, :k].T)
-    return projector, pinv, jnp.sum(in_rank), jnp.sum(null_mask)
+    pinv = Vt.T @ (inv_s[:, None] * U.T)
+    return projector, pinv, rank, n - rank
 
 
 def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | None = None):
