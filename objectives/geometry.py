@@ -230,7 +230,9 @@ def arclength_parameters(curve: Curve, count: int, resolution: int = DEFAULT_RES
     """Curve parameters t_j with s(t_j) = j·L/count, s measured from t = 0.
 
     s(t) is integrated spectrally from the Fourier series of |γ'|; the roots are found by
-    Newton's method and differentiated implicitly (one correction step through stop_gradient).
+    Newton's method from linear interpolation of s at the quadrature nodes (at most
+    ``newton_steps`` steps, fewer once every step is below 1e-10) and differentiated implicitly
+    (one last correction step through stop_gradient, which also brings t to round-off).
     """
     h = 2.0 * jnp.pi / resolution
     sp = jax.vmap(lambda s: speed(curve, s))(nodes(resolution))
@@ -239,20 +241,30 @@ def arclength_parameters(curve: Curve, count: int, resolution: int = DEFAULT_RES
     length = jnp.sum(sp) * h
     # s(t) = c0 t + Σ_{k≥1} 2 Re[c_k (e^{ikt} − 1)/(ik)]; the Nyquist term carries weight 1.
     mult = jnp.where((k == 0) | ((resolution % 2 == 0) & (k == resolution // 2)), 1.0, 2.0)
+    wave = mult[1:] * coef[1:] / (1j * k[1:])
 
-    def s_of(t):
-        kk = k[1:]
-        terms = coef[1:] * (jnp.exp(1j * kk * t) - 1.0) / (1j * kk)
-        return coef[0].real * t + jnp.sum(mult[1:] * terms.real)
+    def s_of(t, c0=coef[0].real, wave=wave):
+        return c0 * t + jnp.sum((wave * (jnp.exp(1j * k[1:] * t) - 1.0)).real)
 
     targets = length * jnp.arange(count) / count
-    t0 = 2.0 * jnp.pi * jnp.arange(count) / count
+    # s at the nodes is the same series, summed by one inverse FFT
+    periodic = (jnp.fft.ifft(jnp.zeros(resolution, wave.dtype).at[1:k.shape[0]].set(wave))
+                * resolution).real
+    t_nodes = jnp.append(nodes(resolution), 2.0 * jnp.pi)
+    s_nodes = jnp.append(coef[0].real * t_nodes[:-1] + periodic - periodic[0], length)
+    # the loop sees constants only (no derivative flows through its iterations)
+    frozen, c0, frozen_wave, frozen_targets = jax.lax.stop_gradient(
+        (curve, coef[0].real, wave, targets))
 
-    def solve(target, t_init):
-        def step(_, t):
-            return t - (s_of(t) - target) / speed(curve, t)
+    def newton_step(state):
+        i, t, _ = state
+        step = (jax.vmap(lambda u: s_of(u, c0, frozen_wave))(t) - frozen_targets) / jax.vmap(
+            lambda u: speed(frozen, u))(t)
+        return i + 1, t - step, jnp.max(jnp.abs(step))
 
-        t_star = jax.lax.stop_gradient(jax.lax.fori_loop(0, newton_steps, step, t_init))
-        return t_star - (s_of(t_star) - target) / jax.lax.stop_gradient(speed(curve, t_star))
-
-    return jax.vmap(solve)(targets, t0)
+    t0 = jax.lax.stop_gradient(jnp.interp(targets, s_nodes, t_nodes))
+    _, t_star, _ = jax.lax.while_loop(
+        lambda state: (state[0] < newton_steps) & (state[2] > 1e-10), newton_step,
+        (jnp.asarray(0), t0, jnp.asarray(jnp.inf)))
+    return t_star - (jax.vmap(s_of)(t_star) - targets) / jax.lax.stop_gradient(
+        jax.vmap(lambda u: speed(curve, u))(t_star))
