@@ -444,6 +444,13 @@ def _lane_steps(curve, t, q, target, max_step, valid):
     jets = jax.vmap(partial(billiard._jet2, curve))(t.reshape(-1))
     jets = billiard.Jets(*(a.reshape(lanes, slots, 2) for a in jets))
     grad, hess = jax.vmap(_grad_hess_from)(jets, q)
+    return _steps_from_derivatives(grad, hess, q, target, max_step, valid)
+
+
+def _steps_from_derivatives(grad, hess, q, target, max_step, valid):
+    """Clipped steps of :func:`_newton` for a batch of lanes with these (∇W, ∇²W): LDLᵀ where
+    the inertia is right, eigenvector steps for the ``valid`` lanes where it is not."""
+    lanes = grad.shape[0]
     delta, usable = jax.vmap(_pivot_step)(grad, hess, q, target)
     few = max(1, lanes // 4)
 
@@ -1068,6 +1075,51 @@ def _to_set(rows, iterates) -> OrbitSet:
 # Warm path
 
 
+def _warm_newton(curve, t, q, target, steps, max_step, curve_axis=None, tol=NEWTON_TOL):
+    """:func:`_newton` for a batch of orbits in one loop (``curve_axis`` 0: one curve per orbit).
+
+    Each orbit stops after ``steps`` steps or once its step is below ``tol``; steps are LDLᵀ
+    Newton steps where the Hessian has the wanted inertia (the warm start is next to the orbit,
+    so nearly always), eigenvector-following steps where it has not."""
+    count = t.shape[0]
+    max_step = jnp.full(count, max_step, t.dtype)
+
+    def going(state):
+        taken, _, last = state
+        return jnp.any((taken < steps) & (last > tol))
+
+    def body(state):
+        taken, t, last = state
+        moving = (taken < steps) & (last > tol)
+        grad, hess = jax.vmap(_grad_hess, in_axes=(curve_axis, 0, 0))(curve, t, q)
+        delta = _steps_from_derivatives(grad, hess, q, target, max_step, moving)
+        return (taken + moving.astype(jnp.int32), jnp.where(moving[:, None], t + delta, t),
+                jnp.where(moving, jnp.max(jnp.abs(delta), axis=1), last))
+
+    start = (jnp.zeros(count, jnp.int32), t, jnp.full(count, jnp.inf, t.dtype))
+    _, t, _ = jax.lax.while_loop(going, body, start)
+    # Unused slots follow bounce 0 so padded entries stay harmless.
+    return jnp.where(jnp.arange(t.shape[1])[None, :] < q[:, None], t, t[:, :1])
+
+
+def _implicit_correction(grad, hess, q):
+    """−H⁻¹∇W per orbit (H held constant): LDLᵀ solves, or for all orbits the pseudo-inverse
+    (eigenvalues below 10⁻¹¹ of the largest dropped) when some Hessian has a tiny pivot, as
+    along a one-parameter orbit family."""
+
+    def pseudo_inverse_steps(grad):
+        def one(g, h):
+            lam, vec = jnp.linalg.eigh(h)
+            scale = jnp.max(jnp.abs(lam))
+            inv = jnp.where(jnp.abs(lam) > 1e-11 * scale, 1.0 / lam, 0.0)
+            return -(vec * inv) @ (vec.T @ g)
+
+        return jax.vmap(one)(grad, hess)
+
+    steps, usable = jax.vmap(_pivot_step)(grad, hess, q, jnp.full(q.shape, -1))
+    return jax.lax.cond(jnp.all(usable), lambda g: steps, pseudo_inverse_steps, grad)
+
+
 @partial(jax.jit, static_argnames=("newton_steps", "resonance_order", "per_orbit_curves"))
 def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
                   resonance_order: int = 4, per_orbit_curves: bool = False) -> OrbitSet:
@@ -1088,16 +1140,19 @@ def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
     output row).
     """
     iterates = orbits.det_iterates.shape[1]
+    axis = 0 if per_orbit_curves else None
+    target = jnp.where(orbits.branch == MAX, 0, jnp.where(orbits.branch == MINIMAX, 1, -1))
+    frozen = jax.lax.stop_gradient(curve)
+    t_star = jax.lax.stop_gradient(_warm_newton(frozen, jax.lax.stop_gradient(orbits.t),
+                                                orbits.q, target, newton_steps, 0.5, axis))
+    # Only ∇W carries the shape derivative; the Hessian is held constant.
+    jets = jax.vmap(billiard.bounce_jets, in_axes=(axis, 0))(curve, t_star)
+    grad = jax.vmap(lambda j, q: billiard.length_gradient_from(
+        j, billiard.chords_from_jets(j, q), q))(jets, orbits.q)
+    hess = jax.vmap(_grad_hess_from)(jax.lax.stop_gradient(jets), orbits.q)[1]
+    t_corrected = t_star + _implicit_correction(grad, hess, orbits.q)
 
-    def one(curve, t, q, index, maslov, branch):
-        target = jnp.where(branch == MAX, 0, jnp.where(branch == MINIMAX, 1, -1))
-        t_star = jax.lax.stop_gradient(_newton(curve, jax.lax.stop_gradient(t), q, newton_steps,
-                                               0.5, target))
-        # Only ∇W carries the shape derivative; the pseudo-inverse Hessian is held constant.
-        _, h_pinv, _ = _newton_direction(jax.lax.stop_gradient(curve), t_star, q)
-        jets = billiard.bounce_jets(curve, t_star)
-        grad = billiard.length_gradient_from(jets, billiard.chords_from_jets(jets, q), q)
-        t_new = t_star - h_pinv @ grad
+    def one(curve, t_new, q, index, maslov, branch):
         (_, length, mono, tr, kind, angle, lyap, dets, residual, new_index, degenerate, resonant,
          ordered, inward) = orbit_data(curve, t_new, q, iterates, resonance_order)
         changed = (~ordered) | ((branch != CRITICAL) & (new_index != index) & (~degenerate))
@@ -1112,8 +1167,8 @@ def refine_orbits(curve: Curve, orbits: OrbitSet, newton_steps: int = 12,
                 status.astype(jnp.int32), degenerate, resonant)
 
     (t, length, mono, tr, kind, angle, lyap, dets, maslov, residual, index, status, degenerate,
-     resonant) = jax.vmap(one, in_axes=(0 if per_orbit_curves else None, 0, 0, 0, 0, 0))(
-        curve, orbits.t, orbits.q, orbits.hessian_index, orbits.maslov, orbits.branch)
+     resonant) = jax.vmap(one, in_axes=(axis, 0, 0, 0, 0, 0))(
+        curve, t_corrected, orbits.q, orbits.hessian_index, orbits.maslov, orbits.branch)
     return orbits._replace(t=t, length=length, monodromy=mono, trace=tr, kind=kind, angle=angle,
                            lyapunov=lyap, det_iterates=dets, maslov=maslov, residual=residual,
                            hessian_index=index, status=status, degenerate=degenerate,
