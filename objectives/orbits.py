@@ -518,16 +518,26 @@ def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes):
 def _merge(t, q, target, rep, decimals):
     """:func:`_representatives` inside jit: each representative (rep[k] = k) maps to the first
     representative with the same q, target and bounce set rounded to ``decimals``; composed with
-    ``rep``."""
+    ``rep``.
+
+    A stable sort by a hash (a fixed linear form of the key) puts equal keys next to each other,
+    smallest index first; runs of entries whose full keys equal their neighbour's form the
+    groups (O(n log n) instead of comparing all pairs). A hash collision could only split a
+    group, i.e. leave a duplicate running, never merge different keys."""
     count, slots = t.shape
-    own = rep == jnp.arange(count)
+    index = jnp.arange(count)
+    own = rep == index
     bounces = jnp.sort(jnp.where(jnp.arange(slots)[None, :] < q[:, None],
                                  jnp.mod(t, 2 * jnp.pi), jnp.inf), axis=1)
-    keys = jnp.round(bounces, decimals)
-    same = (jnp.all(keys[:, None, :] == keys[None, :, :], axis=2)
-            & (q[:, None] == q[None, :]) & (target[:, None] == target[None, :]) & own[None, :])
-    first = jnp.where(own, jnp.argmax(same, axis=1), jnp.arange(count))
-    return first[rep]
+    keys = jnp.concatenate([jnp.round(bounces, decimals), jnp.stack([q, target, own], axis=1)],
+                           axis=1)
+    weights = jnp.sqrt(jnp.arange(2.0, keys.shape[1] + 2.0))  # rationally independent
+    order = jnp.argsort(jnp.where(jnp.isinf(keys), 0.0, keys) @ weights, stable=True)
+    ranked = keys[order]
+    start = jnp.concatenate([jnp.ones(1, bool), jnp.any(ranked[1:] != ranked[:-1], axis=1)])
+    head = jax.lax.cummax(jnp.where(start, index, 0))
+    first = jnp.zeros(count, index.dtype).at[order].set(order[head])
+    return jnp.where(own, first, index)[rep]
 
 
 @partial(jax.jit, static_argnames=("steps", "lanes"))
@@ -569,28 +579,75 @@ def _data_batch(curve, t, q, iterates, resonance_order):
 # Global search
 
 
-@partial(jax.jit, static_argnums=1)
-def _samples(curve, n):
-    t = 2.0 * jnp.pi * jnp.arange(n) / n
-    jets = jax.vmap(lambda s: jnp.stack([curve(s), jax.jacfwd(curve)(s)]))(t)
-    return t, jets[:, 0], jets[:, 1]
-
-
 @jax.jit
+def _jets1(curve, t):
+    """(γ, γ') at every entry of t, shape (len(t), 2, 2)."""
+    return jax.vmap(lambda s: jnp.stack([curve(s), jax.jacfwd(curve)(s)]))(t)
+
+
+SAMPLE_BUCKET = 128
+"""Curve evaluations are padded to a multiple of this, so few array sizes are ever traced."""
+
+
+def _evaluate(curve, t: np.ndarray) -> np.ndarray:
+    """:func:`_jets1` at host parameters t, padded to a multiple of ``SAMPLE_BUCKET``."""
+    padded = np.zeros(-(-t.size // SAMPLE_BUCKET) * SAMPLE_BUCKET)
+    padded[:t.size] = t
+    return np.asarray(_jets1(curve, jnp.asarray(padded)))[:t.size]
+
+
+def _nodes(n: int) -> np.ndarray:
+    """2πj/n, j = 0..n−1, rounded as (2π/n)·j (as XLA folds 2π·j/n, so the grids stay those of
+    the earlier jitted sampler)."""
+    return (2.0 * np.pi / n) * np.arange(n)
+
+
+def _uniform_samples(curve, sizes) -> dict:
+    """{n: (t, γ(t), γ'(t))} at the n equispaced nodes t = 2πj/n, for every n in ``sizes``, from
+    one curve evaluation."""
+    sizes = sorted(set(sizes))
+    jets = np.split(_evaluate(curve, np.concatenate([_nodes(n) for n in sizes])),
+                    np.cumsum(sizes)[:-1])
+    return {n: (_nodes(n), j[:, 0], j[:, 1]) for n, j in zip(sizes, jets)}
+
+
+def _samples(curve, n):
+    return _uniform_samples(curve, [n])[n]
+
+
 def _points(curve, t):
-    return jax.vmap(curve)(t)
+    return _evaluate(curve, np.asarray(t, dtype=float).reshape(-1))[:, 0]
 
 
-def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray, np.ndarray]:
-    """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
-    t_fine, _, vel = (np.asarray(a) for a in _samples(curve, n * oversample))
+def _arclength_nodes(samples, n: int) -> np.ndarray:
+    """n curve parameters equally spaced in arclength, trapezoid-integrated over ``samples``
+    (t, γ, γ') of a finer uniform grid."""
+    t_fine, _, vel = samples
     speed = np.linalg.norm(vel, axis=1)
     s = np.concatenate([[0.0], np.cumsum(0.5 * (speed + np.roll(speed, -1)))]) * (
-        2 * np.pi / (n * oversample))
+        2 * np.pi / t_fine.size)
     t_ext = np.concatenate([t_fine, [2 * np.pi]])
-    t_grid = np.interp(np.arange(n) * s[-1] / n, s, t_ext)
-    points = np.asarray(_points(curve, jnp.asarray(t_grid)))
-    return t_grid, points
+    return np.interp(np.arange(n) * s[-1] / n, s, t_ext)
+
+
+OVERSAMPLE = 8
+"""Uniform samples per arclength grid point integrated by :func:`boundary_grid`."""
+
+
+def _arclength_grids(curve, sizes, oversample: int = OVERSAMPLE, samples=None) -> dict:
+    """{n: (t_grid, points)} for :func:`boundary_grid` of every size, from two curve
+    evaluations (``samples`` may already hold the fine uniform grids)."""
+    sizes = sorted(set(sizes))
+    if samples is None:
+        samples = _uniform_samples(curve, [n * oversample for n in sizes])
+    t_grids = [_arclength_nodes(samples[n * oversample], n) for n in sizes]
+    points = np.split(_points(curve, np.concatenate(t_grids)), np.cumsum(sizes)[:-1])
+    return {n: (t, pts) for n, t, pts in zip(sizes, t_grids, points)}
+
+
+def boundary_grid(curve: Curve, n: int, oversample: int = OVERSAMPLE) -> tuple[np.ndarray, np.ndarray]:
+    """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
+    return _arclength_grids(curve, [n], oversample)[n]
 
 
 class BirkhoffTables(NamedTuple):
@@ -758,24 +815,30 @@ def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> b
     return False
 
 
-def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
+def _grid_sizes(max_period, grid, only=None, refine=1) -> dict:
+    """{(p, q): max-plus grid size} for every rotation number (or those of the keys in ``only``):
+    at least ~5 grid points per bounce, so long orbits keep resolved seeds."""
+    return {(p, q): refine * max(grid, int(16 * np.ceil(5 * q / 16)))
+            for p, q in rotation_numbers(max_period)
+            if only is None or any(key[:2] == (p, q) for key in only)}
+
+
+def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1, samples=None):
     """Seeds (p, q, branch, lifted t) from the max-plus search for every rotation number (or the
-    (p, q, branch) keys in ``only``), on a grid ``refine`` times the default."""
-    wanted = [(p, q) for p, q in rotation_numbers(max_period)
-              if only is None or any(key[:2] == (p, q) for key in only)]
-    # At least ~5 grid points per bounce, so long orbits keep resolved seeds; the rotation
-    # numbers sharing a grid share one dynamic programme.
-    size = {(p, q): refine * max(grid, int(16 * np.ceil(5 * q / 16))) for p, q in wanted}
-    grids, tables = {}, {}
-    for n in sorted(set(size.values())):
+    (p, q, branch) keys in ``only``), on a grid ``refine`` times the default (``samples`` may
+    hold the fine uniform grids :func:`boundary_grid` integrates over)."""
+    size = _grid_sizes(max_period, grid, only, refine)
+    wanted = list(size)
+    # The rotation numbers sharing a grid share one dynamic programme.
+    grids = _arclength_grids(curve, size.values(), samples=samples)
+    tables = {}
+    for n, (_, points) in grids.items():
         served = [key for key in wanted if size[key] == n]
-        t_grid, points = boundary_grid(curve, n)
-        grids[n] = t_grid
         tables.update(_birkhoff_tables(_chord_table(points, max(p for p, _ in served)), served))
     seeds = []
     for p, q in wanted:
         n = size[(p, q)]
-        t_grid = grids[n]
+        t_grid = grids[n][0]
         table, back = tables[(p, q)]
         branches = [(branch, maxima) for branch, maxima in ((MAX, True), (MINIMAX, False))
                     if only is None or (p, q, branch) in only]
@@ -796,9 +859,11 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
     return seeds
 
 
-def _torus_candidates(curve, n):
-    """Grid cells of the torus where both ⟨d, T(t₁)⟩ and ⟨d, T(t₂)⟩ change sign (t₁ < t₂)."""
-    t, pts, vel = (np.asarray(a) for a in _samples(curve, n))
+def _torus_candidates(samples):
+    """Grid cells of the torus where both ⟨d, T(t₁)⟩ and ⟨d, T(t₂)⟩ change sign (t₁ < t₂), on
+    the uniform ``samples`` (t, γ, γ')."""
+    t, pts, vel = samples
+    n = t.size
     tan = vel / np.linalg.norm(vel, axis=1, keepdims=True)
     d = pts[None, :, :] - pts[:, None, :]
     f1 = np.einsum("ijk,ik->ij", d, tan)
@@ -903,17 +968,12 @@ def _representatives(t, qs, targets, among, decimals=8):
 
 
 def _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite, wrong_index):
-    if not finite:
-        return Status.nonfinite
-    if residual > RESIDUAL_TOL:
-        return Status.orbit_not_converged
-    if leaves or not inward:
-        return Status.orbit_leaves_domain
-    if not ordered or abs(winding - p) > 1e-6 or wrong_index:
-        return Status.branch_changed
-    if degenerate:
-        return Status.degenerate
-    return Status.ok
+    """Status codes, elementwise over arrays of orbits; the first failing check decides."""
+    return np.select(
+        [~finite, residual > RESIDUAL_TOL, leaves | ~inward,
+         ~ordered | (np.abs(winding - p) > 1e-6) | wrong_index, degenerate],
+        [Status.nonfinite, Status.orbit_not_converged, Status.orbit_leaves_domain,
+         Status.branch_changed, Status.degenerate], Status.ok).astype(np.int32)
 
 
 def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int = 32,
@@ -929,8 +989,12 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
     """
     if max_period < 2:
         raise ValueError(f"max_period: expected an integer ≥ 2, got {max_period}")
+    # One curve evaluation serves the bouncing-ball torus, the convexity test and the fine
+    # grids the max-plus grids are integrated over.
+    samples = _uniform_samples(curve, [bouncing_grid] + [OVERSAMPLE * n for n in _grid_sizes(
+        max_period, grid).values()])
     if check_domain is None:
-        check_domain = not _polygon_convex(curve, bouncing_grid)
+        check_domain = not _polygon_convex(samples[bouncing_grid])
     polygon = boundary_polygon(curve) if check_domain else None
     solve = partial(_refined_rows, curve, slots=max_period, iterates=iterates,
                     resonance_order=resonance_order, steps=newton_steps, polygon=polygon)
@@ -938,8 +1002,8 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
 
     # Birkhoff orbits and bouncing balls (all sign-change cells of the two end cosines on a torus
     # grid) in one solve: the few seeds that never settle then share one tail batch.
-    seeds = _seed_batch(curve, max_period, grid, candidates)
-    bouncing = [(1, 2, CRITICAL, t) for t in _torus_candidates(curve, bouncing_grid)[:512]]
+    seeds = _seed_batch(curve, max_period, grid, candidates, samples=samples)
+    bouncing = [(1, 2, CRITICAL, t) for t in _torus_candidates(samples[bouncing_grid])[:512]]
     solved = solve(seeds + bouncing, max_step=np.repeat(
         [2 * np.pi / grid, 2 * np.pi / bouncing_grid], [len(seeds), len(bouncing)]))
     bouncing = [r for r in solved if r["branch"] == CRITICAL]
@@ -976,26 +1040,32 @@ def _refined_rows(curve, seeds, slots, iterates, resonance_order, steps, max_ste
     targets = [{MAX: 0, MINIMAX: 1}.get(branch, -1) for _, _, branch, _ in seeds]
     data, where, first = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
                                       targets, slots, iterates, resonance_order, steps, max_step)
-    return [_row(curve, data, where[k], p, q, branch, polygon, iterates)
-            for k, (p, q, branch, _) in enumerate(seeds) if first[k]]
+    keep = np.nonzero(first)[0]
+    p, q, branch = (np.asarray([seeds[k][i] for k in keep], dtype=int) for i in range(3))
+    return _data_rows(data, where[keep], p, q, branch, polygon)
 
 
-def _row(curve, out, k, p, q, branch, polygon, iterates):
+def _data_rows(out, k, p, q, branch, polygon):
+    """Row dicts for the entries ``k`` of the batched orbit data ``out`` reported as (p, q,
+    branch); statuses by :func:`_status_of`, Maslov indices left to :func:`_to_set`."""
     (t, jets, length, mono, tr, kind, angle, lyap, dets, residual, index, degenerate, resonant,
-     ordered, inward, winding) = jax.tree_util.tree_map(lambda o: o[k], out)
-    maslov = None  # filled for the orbits that are kept (see _to_set)
-    finite = bool(np.all(np.isfinite(t)) and np.isfinite(length) and np.all(np.isfinite(mono)))
-    leaves = bool(polygon is not None and finite
-                  and orbit_leaves_domain(polygon, np.asarray(jets.point), t, q))
-    wanted = 0 if branch == MAX else 1
-    wrong_index = (branch != CRITICAL) and int(index) != wanted and not bool(degenerate)
-    status = _status_of(float(residual), bool(ordered), float(winding), p, bool(inward), leaves,
-                        bool(degenerate), finite, wrong_index)
-    return dict(p=p, q=q, branch=branch, t=t, jets=jets, length=float(length),
-                monodromy=mono, trace=float(tr), kind=int(kind), angle=float(angle),
-                lyapunov=float(lyap), det_iterates=dets, maslov=maslov, reflections=q,
-                residual=float(residual), hessian_index=int(index), status=int(status),
-                degenerate=bool(degenerate), resonant=bool(resonant), near_tie=False)
+     ordered, inward, winding) = jax.tree_util.tree_map(lambda o: np.asarray(o)[k], out)
+    finite = (np.all(np.isfinite(t), axis=1) & np.isfinite(length)
+              & np.all(np.isfinite(mono), axis=(1, 2)))
+    leaves = np.asarray([polygon is not None and bool(finite[i])
+                         and orbit_leaves_domain(polygon, jets.point[i], t[i], q[i])
+                         for i in range(k.size)], dtype=bool)
+    wrong_index = (branch != CRITICAL) & (index != np.where(branch == MAX, 0, 1)) & ~degenerate
+    status = _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite,
+                        wrong_index)
+    columns = dict(p=p, q=q, branch=branch, length=length, trace=tr, kind=kind, angle=angle,
+                   lyapunov=lyap, reflections=q, residual=residual, hessian_index=index,
+                   status=status, degenerate=degenerate, resonant=resonant)
+    scalars = {name: value.tolist() for name, value in columns.items()}
+    return [dict({name: value[i] for name, value in scalars.items()},
+                 t=t[i], jets=billiard.Jets(*(x[i] for x in jets)), monodromy=mono[i],
+                 det_iterates=dets[i], maslov=None, near_tie=False)
+            for i in range(k.size)]
 
 
 def _same_orbit(a, b, tol=1e-7):
@@ -1021,9 +1091,10 @@ def _pick(group, branch):
     return best
 
 
-def _polygon_convex(curve, n):
-    """Whether consecutive unit tangents at n nodes always turn left (strict convexity proxy)."""
-    _, _, vel = (np.asarray(a) for a in _samples(curve, n))
+def _polygon_convex(samples):
+    """Whether consecutive unit tangents at the uniform ``samples`` (t, γ, γ') always turn left
+    (strict convexity proxy)."""
+    vel = samples[2]
     nxt = np.roll(vel, -1, axis=0)
     return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
 
