@@ -151,48 +151,56 @@ def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
     Numpy, outside jit (cold path and reports): the Hessian of the m-fold orbit has size m·q.
     ``jets`` are the (γ, γ', γ'') at the q bounces.
     """
-    return _maslov_batch(tuple(np.asarray(x)[None, :q] for x in jets), iterates)[0]
+    return _maslov_batch(tuple(np.asarray(x)[None, :q] for x in jets), np.asarray([q]),
+                         iterates)[0]
 
 
-def _maslov_batch(jets, iterates: int) -> np.ndarray:
-    """:func:`iterate_maslov` for K orbits of one period q at once: jets of shape (K, q, 2)."""
-    a, b, c = _second_derivatives_np(jets)
-    count, q = a.shape
+def _maslov_batch(jets, q: np.ndarray, iterates: int) -> np.ndarray:
+    """:func:`iterate_maslov` for K orbits at once: jets of shape (K, Q, 2) with the q[k] ≤ Q
+    bounces of orbit k first. Each m-fold Hessian is padded to size m·Q with zero rows and
+    columns (zero eigenvalues, never counted as negative), so one eigvalsh call per m serves
+    every period."""
+    count, slots = jets[0].shape[:2]
+    rows = np.arange(count)[:, None]
+    # Padded slots (unused) repeat bounce 0 and may give 0/0.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a, b, c = _second_derivatives_np(jets, np.where(np.arange(slots) + 1 < q[:, None],
+                                                       np.arange(slots) + 1, 0))
     out = np.zeros((count, iterates), dtype=np.int32)
     for m in range(1, iterates + 1):
-        n = m * q
+        size = m * slots
+        n = m * q[:, None]
+        j = np.arange(size)[None, :]
+        active = j < n
+        bounce, before = j % q[:, None], (j - 1) % q[:, None]
         # The m-fold orbit repeats the q chords: cyclic Hessian, diagonal a_i + c_{i−1},
         # b_i between i and i+1 (the two chords add when n = 2).
-        a_m, b_m, c_m = np.tile(a, m), np.tile(b, m), np.tile(c, m)
-        idx = np.arange(n)
-        hess = np.zeros((count, n, n))
-        hess[:, idx, idx] = a_m + np.roll(c_m, 1, axis=1)
-        if n == 2:
-            hess[:, 0, 1] = hess[:, 1, 0] = b_m[:, 0] + b_m[:, 1]
-        else:
-            hess[:, idx, (idx + 1) % n] = b_m
-            hess[:, (idx + 1) % n, idx] = b_m
+        upper = np.zeros((count, size, size))
+        upper[rows, j, np.where(active, (j + 1) % n, j)] = np.where(active, b[rows, bounce], 0.0)
+        hess = upper + np.swapaxes(upper, 1, 2)
+        hess[rows, j, j] = np.where(active, a[rows, bounce] + c[rows, before], 0.0)
         lam = np.linalg.eigvalsh(hess)
         scale = np.max(np.abs(lam), axis=1, keepdims=True) + 1.0
         out[:, m - 1] = np.sum(lam < -DEGENERATE_TOL * scale, axis=1)
     return out
 
 
-def _second_derivatives_np(jets):
-    """(a, b, c) of each chord of the closed polygons through the jets' points (numpy; arrays
-    of shape (..., q, 2) give (..., q))."""
-    pts, vel, acc = (np.asarray(a) for a in jets)
-    nxt = (np.arange(pts.shape[-2]) + 1) % pts.shape[-2]
-    d = pts[..., nxt, :] - pts
+def _second_derivatives_np(jets, nxt):
+    """(a, b, c) of each chord of the closed polygons through the jets' points, chord i from
+    point i to point nxt[..., i] (numpy; arrays of shape (..., Q, 2) give (..., Q))."""
+    pts, vel, acc = (np.asarray(x) for x in jets)
+    ahead = lambda x: np.take_along_axis(x, nxt[..., None], axis=-2)  # noqa: E731
+    d = ahead(pts) - pts
     h = np.linalg.norm(d, axis=-1)
     u = d / h[..., None]
     speed = np.linalg.norm(vel, axis=-1)
     tan = vel / speed[..., None]
     kappa = (vel[..., 0] * acc[..., 1] - vel[..., 1] * acc[..., 0]) / speed**3
+    tan_end, kappa_end = ahead(tan), np.take_along_axis(kappa, nxt, axis=-1)
     sin_out = tan[..., 0] * u[..., 1] - tan[..., 1] * u[..., 0]
-    sin_in = u[..., 0] * tan[..., nxt, 1] - u[..., 1] * tan[..., nxt, 0]
+    sin_in = u[..., 0] * tan_end[..., 1] - u[..., 1] * tan_end[..., 0]
     return (sin_out**2 / h - kappa * sin_out, sin_out * sin_in / h,
-            sin_in**2 / h - kappa[..., nxt] * sin_in)
+            sin_in**2 / h - kappa_end * sin_in)
 
 
 def _power_traces(mono, iterates):
@@ -933,8 +941,9 @@ QUEUE = 256
 NEWTON_CAPS = (4, 7, 10, 16)
 """Step counts after which seeds that met continue as one. Most seeds stop after 5-9 steps;
 the few left after 16 rarely converge at all (sliding along the table)."""
-SOLVE_CHUNK = 32
-"""Refined configurations per orbit-data call (one compiled size)."""
+SOLVE_CHUNK = 64
+"""Refined configurations per orbit-data call (one compiled size; the default cold solve
+refines ~40 distinct ones, so one call)."""
 
 
 def _chunks(index: np.ndarray, size: int):
@@ -1118,11 +1127,10 @@ def _bouncing_balls(solved):
 
 
 def _to_set(rows, iterates) -> OrbitSet:
-    for q in sorted({r["q"] for r in rows}):
-        group = [r for r in rows if r["q"] == q]
-        jets = tuple(np.stack([np.asarray(r["jets"][i])[:q] for r in group]) for i in range(3))
-        for r, maslov in zip(group, _maslov_batch(jets, iterates)):
-            r["maslov"] = maslov
+    jets = tuple(np.stack([np.asarray(r["jets"][i]) for r in rows]) for i in range(3))
+    for r, maslov in zip(rows, _maslov_batch(jets, np.asarray([r["q"] for r in rows]),
+                                             iterates)):
+        r["maslov"] = maslov
     field = lambda name, dtype=None: np.asarray([r[name] for r in rows], dtype=dtype)  # noqa: E731
     return OrbitSet(
         p=field("p", np.int32), q=field("q", np.int32), branch=field("branch", np.int32),
