@@ -189,7 +189,7 @@ def _second_derivatives_np(jets, nxt):
     """(a, b, c) of each chord of the closed polygons through the jets' points, chord i from
     point i to point nxt[..., i] (numpy; arrays of shape (..., Q, 2) give (..., Q))."""
     pts, vel, acc = (np.asarray(x) for x in jets)
-    ahead = lambda x: np.take_along_axis(x, nxt[..., None], axis=-2)  # noqa: E731
+    ahead = lambda x: np.take_along_axis(x, nxt[..., None], axis=-2)
     d = ahead(pts) - pts
     h = np.linalg.norm(d, axis=-1)
     u = d / h[..., None]
@@ -755,16 +755,16 @@ def _distinct_paths(traced, n, count, separation=1):
     """Up to ``count`` of the ``traced`` grid paths (best first) that are not the same orbit:
     a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
     an already kept path is a grid variant of it."""
-    kept, paths = [], []
-    for path in traced:
-        gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
-        if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
-            continue
-        kept.append(path)
-        paths.append(path)
-        if len(paths) == count:
-            break
-    return paths
+    gaps = np.abs(traced[:, None, :, None] - traced[None, :, None, :]) % n
+    # variant[i, j]: every bounce of path i is near some bounce of path j.
+    variant = np.all(np.minimum(gaps, n - gaps).min(axis=3) <= separation, axis=2)
+    kept = []
+    for i in range(len(traced)):
+        if not variant[i, kept].any():
+            kept.append(i)
+            if len(kept) == count:
+                break
+    return list(traced[kept])
 
 
 def _lift(t_path: np.ndarray, p: int) -> np.ndarray:
@@ -884,15 +884,22 @@ def _torus_candidates(samples):
     i, j = np.nonzero(changes(f1) & changes(f2))
     gap = np.minimum((j - i) % n, (i - j) % n)
     keep = (i < j) & (gap > 2)
-    cells = []
-    for a, b in zip(i[keep], j[keep]):
-        # Neighbouring cells bracket the same crossing: one seed each.
-        if not any(min((a - c) % n, (c - a) % n) <= 1 and min((b - d) % n, (d - b) % n) <= 1
-                   for c, d in cells):
-            cells.append((a, b))
-    cells = np.asarray(cells, dtype=int).reshape(-1, 2)
+    i, j = i[keep], j[keep]
+    close = _cyclic_near(i, n) & _cyclic_near(j, n)
+    # Neighbouring cells bracket the same crossing: one seed each (the first in row order).
+    kept = []
+    for k in range(i.size):
+        if not close[k, kept].any():
+            kept.append(k)
+    cells = np.stack([i[kept], j[kept]], axis=1).reshape(-1, 2)
     h = 2 * np.pi / n
     return np.stack([t[cells[:, 0]] + h / 2, t[cells[:, 1]] + h / 2], axis=1)
+
+
+def _cyclic_near(x: np.ndarray, n: int) -> np.ndarray:
+    """[a, b]: grid indices x[a] and x[b] are at most one point apart on the n-cycle."""
+    gap = (x[:, None] - x[None, :]) % n
+    return np.minimum(gap, n - gap) <= 1
 
 
 SEED_SHIFTS = (-2, -1, 1, 2)
@@ -1067,9 +1074,10 @@ def _data_rows(out, k, p, q, branch, polygon):
     wrong_index = (branch != CRITICAL) & (index != np.where(branch == MAX, 0, 1)) & ~degenerate
     status = _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite,
                         wrong_index)
-    columns = dict(p=p, q=q, branch=branch, length=length, trace=tr, kind=kind, angle=angle,
-                   lyapunov=lyap, reflections=q, residual=residual, hessian_index=index,
-                   status=status, degenerate=degenerate, resonant=resonant)
+    columns = {"p": p, "q": q, "branch": branch, "length": length, "trace": tr, "kind": kind,
+               "angle": angle, "lyapunov": lyap, "reflections": q, "residual": residual,
+               "hessian_index": index, "status": status, "degenerate": degenerate,
+               "resonant": resonant}
     scalars = {name: value.tolist() for name, value in columns.items()}
     return [dict({name: value[i] for name, value in scalars.items()},
                  t=t[i], jets=billiard.Jets(*(x[i] for x in jets)), monodromy=mono[i],
