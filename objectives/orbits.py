@@ -705,19 +705,26 @@ def _birkhoff_tables(chords: np.ndarray, rotations) -> dict:
     values = [padded[:, n - 1:].copy()]
     for j in range(1, max(q for _, q in rotations) + 1):
         # Only advances reachable in j chords from which the remaining chords of some served
-        # rotation number can still close its path (other entries are never read).
+        # rotation number can still close its path (other entries are never read); on the
+        # last step of every open rotation number, only its closing advances pn.
         open_ = [(p, q) for p, q in rotations if q >= j]
-        lo = max(j, min(p * n - (q - j) * (n - 1) for p, q in open_))
-        hi = min(j * (n - 1), max(p * n for p, _ in open_))
-        width = hi - lo + 1
-        shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
-                             strides=(p0, -p1, p1), writeable=False)
-        gain = as_strided(chords[:, n - 1 + lo:], shape=(n, n - 1, width),
-                          strides=(c1, c0 - c1, c1), writeable=False)
-        np.add(shifted, gain, out=buffer[:, :, :width])
-        best = buffer[:, :, :width].max(axis=1)
+        if all(q == j for _, q in open_):
+            spans = [(p * n, p * n) for p in sorted({p for p, _ in open_})]
+        else:
+            spans = [(max(j, min(p * n - (q - j) * (n - 1) for p, q in open_)),
+                      min(j * (n - 1), max(p * n for p, _ in open_)))]
+        best = []
+        for lo, hi in spans:
+            width = hi - lo + 1
+            shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
+                                 strides=(p0, -p1, p1), writeable=False)
+            gain = as_strided(chords[:, n - 1 + lo:], shape=(n, n - 1, width),
+                              strides=(c1, c0 - c1, c1), writeable=False)
+            np.add(shifted, gain, out=buffer[:, :, :width])
+            best.append(buffer[:, :, :width].max(axis=1))
         padded[:, n - 1:] = -np.inf
-        padded[:, n - 1 + lo:n + hi] = best
+        for (lo, hi), part in zip(spans, best):
+            padded[:, n - 1 + lo:n + hi] = part
         values.append(padded[:, n - 1:].copy())
     return {(p, q): (values[q][:, p * n], BirkhoffTables(values[:q + 1], chords))
             for p, q in rotations}
