@@ -151,48 +151,56 @@ def iterate_maslov(jets: billiard.Jets, q: int, iterates: int) -> np.ndarray:
     Numpy, outside jit (cold path and reports): the Hessian of the m-fold orbit has size m·q.
     ``jets`` are the (γ, γ', γ'') at the q bounces.
     """
-    return _maslov_batch(tuple(np.asarray(x)[None, :q] for x in jets), iterates)[0]
+    return _maslov_batch(tuple(np.asarray(x)[None, :q] for x in jets), np.asarray([q]),
+                         iterates)[0]
 
 
-def _maslov_batch(jets, iterates: int) -> np.ndarray:
-    """:func:`iterate_maslov` for K orbits of one period q at once: jets of shape (K, q, 2)."""
-    a, b, c = _second_derivatives_np(jets)
-    count, q = a.shape
+def _maslov_batch(jets, q: np.ndarray, iterates: int) -> np.ndarray:
+    """:func:`iterate_maslov` for K orbits at once: jets of shape (K, Q, 2) with the q[k] ≤ Q
+    bounces of orbit k first. Each m-fold Hessian is padded to size m·Q with zero rows and
+    columns (zero eigenvalues, never counted as negative), so one eigvalsh call per m serves
+    every period."""
+    count, slots = jets[0].shape[:2]
+    rows = np.arange(count)[:, None]
+    # Padded slots (unused) repeat bounce 0 and may give 0/0.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a, b, c = _second_derivatives_np(jets, np.where(np.arange(slots) + 1 < q[:, None],
+                                                       np.arange(slots) + 1, 0))
     out = np.zeros((count, iterates), dtype=np.int32)
     for m in range(1, iterates + 1):
-        n = m * q
+        size = m * slots
+        n = m * q[:, None]
+        j = np.arange(size)[None, :]
+        active = j < n
+        bounce, before = j % q[:, None], (j - 1) % q[:, None]
         # The m-fold orbit repeats the q chords: cyclic Hessian, diagonal a_i + c_{i−1},
         # b_i between i and i+1 (the two chords add when n = 2).
-        a_m, b_m, c_m = np.tile(a, m), np.tile(b, m), np.tile(c, m)
-        idx = np.arange(n)
-        hess = np.zeros((count, n, n))
-        hess[:, idx, idx] = a_m + np.roll(c_m, 1, axis=1)
-        if n == 2:
-            hess[:, 0, 1] = hess[:, 1, 0] = b_m[:, 0] + b_m[:, 1]
-        else:
-            hess[:, idx, (idx + 1) % n] = b_m
-            hess[:, (idx + 1) % n, idx] = b_m
+        upper = np.zeros((count, size, size))
+        upper[rows, j, np.where(active, (j + 1) % n, j)] = np.where(active, b[rows, bounce], 0.0)
+        hess = upper + np.swapaxes(upper, 1, 2)
+        hess[rows, j, j] = np.where(active, a[rows, bounce] + c[rows, before], 0.0)
         lam = np.linalg.eigvalsh(hess)
         scale = np.max(np.abs(lam), axis=1, keepdims=True) + 1.0
         out[:, m - 1] = np.sum(lam < -DEGENERATE_TOL * scale, axis=1)
     return out
 
 
-def _second_derivatives_np(jets):
-    """(a, b, c) of each chord of the closed polygons through the jets' points (numpy; arrays
-    of shape (..., q, 2) give (..., q))."""
-    pts, vel, acc = (np.asarray(a) for a in jets)
-    nxt = (np.arange(pts.shape[-2]) + 1) % pts.shape[-2]
-    d = pts[..., nxt, :] - pts
+def _second_derivatives_np(jets, nxt):
+    """(a, b, c) of each chord of the closed polygons through the jets' points, chord i from
+    point i to point nxt[..., i] (numpy; arrays of shape (..., Q, 2) give (..., Q))."""
+    pts, vel, acc = (np.asarray(x) for x in jets)
+    ahead = lambda x: np.take_along_axis(x, nxt[..., None], axis=-2)
+    d = ahead(pts) - pts
     h = np.linalg.norm(d, axis=-1)
     u = d / h[..., None]
     speed = np.linalg.norm(vel, axis=-1)
     tan = vel / speed[..., None]
     kappa = (vel[..., 0] * acc[..., 1] - vel[..., 1] * acc[..., 0]) / speed**3
+    tan_end, kappa_end = ahead(tan), np.take_along_axis(kappa, nxt, axis=-1)
     sin_out = tan[..., 0] * u[..., 1] - tan[..., 1] * u[..., 0]
-    sin_in = u[..., 0] * tan[..., nxt, 1] - u[..., 1] * tan[..., nxt, 0]
+    sin_in = u[..., 0] * tan_end[..., 1] - u[..., 1] * tan_end[..., 0]
     return (sin_out**2 / h - kappa * sin_out, sin_out * sin_in / h,
-            sin_in**2 / h - kappa[..., nxt] * sin_in)
+            sin_in**2 / h - kappa_end * sin_in)
 
 
 def _power_traces(mono, iterates):
@@ -525,16 +533,26 @@ def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes):
 def _merge(t, q, target, rep, decimals):
     """:func:`_representatives` inside jit: each representative (rep[k] = k) maps to the first
     representative with the same q, target and bounce set rounded to ``decimals``; composed with
-    ``rep``."""
+    ``rep``.
+
+    A stable sort by a hash (a fixed linear form of the key) puts equal keys next to each other,
+    smallest index first; runs of entries whose full keys equal their neighbour's form the
+    groups (O(n log n) instead of comparing all pairs). A hash collision could only split a
+    group, i.e. leave a duplicate running, never merge different keys."""
     count, slots = t.shape
-    own = rep == jnp.arange(count)
+    index = jnp.arange(count)
+    own = rep == index
     bounces = jnp.sort(jnp.where(jnp.arange(slots)[None, :] < q[:, None],
                                  jnp.mod(t, 2 * jnp.pi), jnp.inf), axis=1)
-    keys = jnp.round(bounces, decimals)
-    same = (jnp.all(keys[:, None, :] == keys[None, :, :], axis=2)
-            & (q[:, None] == q[None, :]) & (target[:, None] == target[None, :]) & own[None, :])
-    first = jnp.where(own, jnp.argmax(same, axis=1), jnp.arange(count))
-    return first[rep]
+    keys = jnp.concatenate([jnp.round(bounces, decimals), jnp.stack([q, target, own], axis=1)],
+                           axis=1)
+    weights = jnp.sqrt(jnp.arange(2.0, keys.shape[1] + 2.0))  # rationally independent
+    order = jnp.argsort(jnp.where(jnp.isinf(keys), 0.0, keys) @ weights, stable=True)
+    ranked = keys[order]
+    start = jnp.concatenate([jnp.ones(1, bool), jnp.any(ranked[1:] != ranked[:-1], axis=1)])
+    head = jax.lax.cummax(jnp.where(start, index, 0))
+    first = jnp.zeros(count, index.dtype).at[order].set(order[head])
+    return jnp.where(own, first, index)[rep]
 
 
 @partial(jax.jit, static_argnames=("steps", "lanes"))
@@ -576,28 +594,75 @@ def _data_batch(curve, t, q, iterates, resonance_order):
 # Global search
 
 
-@partial(jax.jit, static_argnums=1)
-def _samples(curve, n):
-    t = 2.0 * jnp.pi * jnp.arange(n) / n
-    jets = jax.vmap(lambda s: jnp.stack([curve(s), jax.jacfwd(curve)(s)]))(t)
-    return t, jets[:, 0], jets[:, 1]
-
-
 @jax.jit
+def _jets1(curve, t):
+    """(γ, γ') at every entry of t, shape (len(t), 2, 2)."""
+    return jax.vmap(lambda s: jnp.stack([curve(s), jax.jacfwd(curve)(s)]))(t)
+
+
+SAMPLE_BUCKET = 128
+"""Curve evaluations are padded to a multiple of this, so few array sizes are ever traced."""
+
+
+def _evaluate(curve, t: np.ndarray) -> np.ndarray:
+    """:func:`_jets1` at host parameters t, padded to a multiple of ``SAMPLE_BUCKET``."""
+    padded = np.zeros(-(-t.size // SAMPLE_BUCKET) * SAMPLE_BUCKET)
+    padded[:t.size] = t
+    return np.asarray(_jets1(curve, jnp.asarray(padded)))[:t.size]
+
+
+def _nodes(n: int) -> np.ndarray:
+    """2πj/n, j = 0..n−1, rounded as (2π/n)·j (as XLA folds 2π·j/n, so the grids stay those of
+    the earlier jitted sampler)."""
+    return (2.0 * np.pi / n) * np.arange(n)
+
+
+def _uniform_samples(curve, sizes) -> dict:
+    """{n: (t, γ(t), γ'(t))} at the n equispaced nodes t = 2πj/n, for every n in ``sizes``, from
+    one curve evaluation."""
+    sizes = sorted(set(sizes))
+    jets = np.split(_evaluate(curve, np.concatenate([_nodes(n) for n in sizes])),
+                    np.cumsum(sizes)[:-1])
+    return {n: (_nodes(n), j[:, 0], j[:, 1]) for n, j in zip(sizes, jets)}
+
+
+def _samples(curve, n):
+    return _uniform_samples(curve, [n])[n]
+
+
 def _points(curve, t):
-    return jax.vmap(curve)(t)
+    return _evaluate(curve, np.asarray(t, dtype=float).reshape(-1))[:, 0]
 
 
-def boundary_grid(curve: Curve, n: int, oversample: int = 8) -> tuple[np.ndarray, np.ndarray]:
-    """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
-    t_fine, _, vel = (np.asarray(a) for a in _samples(curve, n * oversample))
+def _arclength_nodes(samples, n: int) -> np.ndarray:
+    """n curve parameters equally spaced in arclength, trapezoid-integrated over ``samples``
+    (t, γ, γ') of a finer uniform grid."""
+    t_fine, _, vel = samples
     speed = np.linalg.norm(vel, axis=1)
     s = np.concatenate([[0.0], np.cumsum(0.5 * (speed + np.roll(speed, -1)))]) * (
-        2 * np.pi / (n * oversample))
+        2 * np.pi / t_fine.size)
     t_ext = np.concatenate([t_fine, [2 * np.pi]])
-    t_grid = np.interp(np.arange(n) * s[-1] / n, s, t_ext)
-    points = np.asarray(_points(curve, jnp.asarray(t_grid)))
-    return t_grid, points
+    return np.interp(np.arange(n) * s[-1] / n, s, t_ext)
+
+
+OVERSAMPLE = 8
+"""Uniform samples per arclength grid point integrated by :func:`boundary_grid`."""
+
+
+def _arclength_grids(curve, sizes, oversample: int = OVERSAMPLE, samples=None) -> dict:
+    """{n: (t_grid, points)} for :func:`boundary_grid` of every size, from two curve
+    evaluations (``samples`` may already hold the fine uniform grids)."""
+    sizes = sorted(set(sizes))
+    if samples is None:
+        samples = _uniform_samples(curve, [n * oversample for n in sizes])
+    t_grids = [_arclength_nodes(samples[n * oversample], n) for n in sizes]
+    points = np.split(_points(curve, np.concatenate(t_grids)), np.cumsum(sizes)[:-1])
+    return {n: (t, pts) for n, t, pts in zip(sizes, t_grids, points)}
+
+
+def boundary_grid(curve: Curve, n: int, oversample: int = OVERSAMPLE) -> tuple[np.ndarray, np.ndarray]:
+    """n curve parameters equally spaced in arclength (trapezoid-integrated) and their points."""
+    return _arclength_grids(curve, [n], oversample)[n]
 
 
 class BirkhoffTables(NamedTuple):
@@ -647,19 +712,26 @@ def _birkhoff_tables(chords: np.ndarray, rotations) -> dict:
     values = [padded[:, n - 1:].copy()]
     for j in range(1, max(q for _, q in rotations) + 1):
         # Only advances reachable in j chords from which the remaining chords of some served
-        # rotation number can still close its path (other entries are never read).
+        # rotation number can still close its path (other entries are never read); on the
+        # last step of every open rotation number, only its closing advances pn.
         open_ = [(p, q) for p, q in rotations if q >= j]
-        lo = max(j, min(p * n - (q - j) * (n - 1) for p, q in open_))
-        hi = min(j * (n - 1), max(p * n for p, _ in open_))
-        width = hi - lo + 1
-        shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
-                             strides=(p0, -p1, p1), writeable=False)
-        gain = as_strided(chords[:, n - 1 + lo:], shape=(n, n - 1, width),
-                          strides=(c1, c0 - c1, c1), writeable=False)
-        np.add(shifted, gain, out=buffer[:, :, :width])
-        best = buffer[:, :, :width].max(axis=1)
+        if all(q == j for _, q in open_):
+            spans = [(p * n, p * n) for p in sorted({p for p, _ in open_})]
+        else:
+            spans = [(max(j, min(p * n - (q - j) * (n - 1) for p, q in open_)),
+                      min(j * (n - 1), max(p * n for p, _ in open_)))]
+        best = []
+        for lo, hi in spans:
+            width = hi - lo + 1
+            shifted = as_strided(padded[:, n - 2 + lo:], shape=(n, n - 1, width),
+                                 strides=(p0, -p1, p1), writeable=False)
+            gain = as_strided(chords[:, n - 1 + lo:], shape=(n, n - 1, width),
+                              strides=(c1, c0 - c1, c1), writeable=False)
+            np.add(shifted, gain, out=buffer[:, :, :width])
+            best.append(buffer[:, :, :width].max(axis=1))
         padded[:, n - 1:] = -np.inf
-        padded[:, n - 1 + lo:n + hi] = best
+        for (lo, hi), part in zip(spans, best):
+            padded[:, n - 1 + lo:n + hi] = part
         values.append(padded[:, n - 1:].copy())
     return {(p, q): (values[q][:, p * n], BirkhoffTables(values[:q + 1], chords))
             for p, q in rotations}
@@ -697,16 +769,16 @@ def _distinct_paths(traced, n, count, separation=1):
     """Up to ``count`` of the ``traced`` grid paths (best first) that are not the same orbit:
     a path whose every bounce lies within ``separation`` grid points (cyclically) of a bounce of
     an already kept path is a grid variant of it."""
-    kept, paths = [], []
-    for path in traced:
-        gaps = [np.abs(path[:, None] - k[None, :]) % n for k in kept]
-        if any(np.all(np.minimum(g, n - g).min(axis=1) <= separation) for g in gaps):
-            continue
-        kept.append(path)
-        paths.append(path)
-        if len(paths) == count:
-            break
-    return paths
+    gaps = np.abs(traced[:, None, :, None] - traced[None, :, None, :]) % n
+    # variant[i, j]: every bounce of path i is near some bounce of path j.
+    variant = np.all(np.minimum(gaps, n - gaps).min(axis=3) <= separation, axis=2)
+    kept = []
+    for i in range(len(traced)):
+        if not variant[i, kept].any():
+            kept.append(i)
+            if len(kept) == count:
+                break
+    return list(traced[kept])
 
 
 def _lift(t_path: np.ndarray, p: int) -> np.ndarray:
@@ -765,24 +837,30 @@ def orbit_leaves_domain(polygon, points: np.ndarray, t: np.ndarray, q: int) -> b
     return False
 
 
-def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
+def _grid_sizes(max_period, grid, only=None, refine=1) -> dict:
+    """{(p, q): max-plus grid size} for every rotation number (or those of the keys in ``only``):
+    at least ~5 grid points per bounce, so long orbits keep resolved seeds."""
+    return {(p, q): refine * max(grid, int(16 * np.ceil(5 * q / 16)))
+            for p, q in rotation_numbers(max_period)
+            if only is None or any(key[:2] == (p, q) for key in only)}
+
+
+def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1, samples=None):
     """Seeds (p, q, branch, lifted t) from the max-plus search for every rotation number (or the
-    (p, q, branch) keys in ``only``), on a grid ``refine`` times the default."""
-    wanted = [(p, q) for p, q in rotation_numbers(max_period)
-              if only is None or any(key[:2] == (p, q) for key in only)]
-    # At least ~5 grid points per bounce, so long orbits keep resolved seeds; the rotation
-    # numbers sharing a grid share one dynamic programme.
-    size = {(p, q): refine * max(grid, int(16 * np.ceil(5 * q / 16))) for p, q in wanted}
-    grids, tables = {}, {}
-    for n in sorted(set(size.values())):
+    (p, q, branch) keys in ``only``), on a grid ``refine`` times the default (``samples`` may
+    hold the fine uniform grids :func:`boundary_grid` integrates over)."""
+    size = _grid_sizes(max_period, grid, only, refine)
+    wanted = list(size)
+    # The rotation numbers sharing a grid share one dynamic programme.
+    grids = _arclength_grids(curve, size.values(), samples=samples)
+    tables = {}
+    for n, (_, points) in grids.items():
         served = [key for key in wanted if size[key] == n]
-        t_grid, points = boundary_grid(curve, n)
-        grids[n] = t_grid
         tables.update(_birkhoff_tables(_chord_table(points, max(p for p, _ in served)), served))
     seeds = []
     for p, q in wanted:
         n = size[(p, q)]
-        t_grid = grids[n]
+        t_grid = grids[n][0]
         table, back = tables[(p, q)]
         branches = [(branch, maxima) for branch, maxima in ((MAX, True), (MINIMAX, False))
                     if only is None or (p, q, branch) in only]
@@ -803,9 +881,11 @@ def _seed_batch(curve, max_period, grid, candidates, only=None, refine=1):
     return seeds
 
 
-def _torus_candidates(curve, n):
-    """Grid cells of the torus where both ⟨d, T(t₁)⟩ and ⟨d, T(t₂)⟩ change sign (t₁ < t₂)."""
-    t, pts, vel = (np.asarray(a) for a in _samples(curve, n))
+def _torus_candidates(samples):
+    """Grid cells of the torus where both ⟨d, T(t₁)⟩ and ⟨d, T(t₂)⟩ change sign (t₁ < t₂), on
+    the uniform ``samples`` (t, γ, γ')."""
+    t, pts, vel = samples
+    n = t.size
     tan = vel / np.linalg.norm(vel, axis=1, keepdims=True)
     d = pts[None, :, :] - pts[:, None, :]
     f1 = np.einsum("ijk,ik->ij", d, tan)
@@ -818,15 +898,22 @@ def _torus_candidates(curve, n):
     i, j = np.nonzero(changes(f1) & changes(f2))
     gap = np.minimum((j - i) % n, (i - j) % n)
     keep = (i < j) & (gap > 2)
-    cells = []
-    for a, b in zip(i[keep], j[keep]):
-        # Neighbouring cells bracket the same crossing: one seed each.
-        if not any(min((a - c) % n, (c - a) % n) <= 1 and min((b - d) % n, (d - b) % n) <= 1
-                   for c, d in cells):
-            cells.append((a, b))
-    cells = np.asarray(cells, dtype=int).reshape(-1, 2)
+    i, j = i[keep], j[keep]
+    close = _cyclic_near(i, n) & _cyclic_near(j, n)
+    # Neighbouring cells bracket the same crossing: one seed each (the first in row order).
+    kept = []
+    for k in range(i.size):
+        if not close[k, kept].any():
+            kept.append(k)
+    cells = np.stack([i[kept], j[kept]], axis=1).reshape(-1, 2)
     h = 2 * np.pi / n
     return np.stack([t[cells[:, 0]] + h / 2, t[cells[:, 1]] + h / 2], axis=1)
+
+
+def _cyclic_near(x: np.ndarray, n: int) -> np.ndarray:
+    """[a, b]: grid indices x[a] and x[b] are at most one point apart on the n-cycle."""
+    gap = (x[:, None] - x[None, :]) % n
+    return np.minimum(gap, n - gap) <= 1
 
 
 SEED_SHIFTS = (-2, -1, 1, 2)
@@ -875,8 +962,9 @@ QUEUE = 256
 NEWTON_CAPS = (4, 7, 10, 16)
 """Step counts after which seeds that met continue as one. Most seeds stop after 5-9 steps;
 the few left after 16 rarely converge at all (sliding along the table)."""
-SOLVE_CHUNK = 32
-"""Refined configurations per orbit-data call (one compiled size)."""
+SOLVE_CHUNK = 64
+"""Refined configurations per orbit-data call (one compiled size; the default cold solve
+refines ~40 distinct ones, so one call)."""
 
 
 def _chunks(index: np.ndarray, size: int):
@@ -910,17 +998,12 @@ def _representatives(t, qs, targets, among, decimals=8):
 
 
 def _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite, wrong_index):
-    if not finite:
-        return Status.nonfinite
-    if residual > RESIDUAL_TOL:
-        return Status.orbit_not_converged
-    if leaves or not inward:
-        return Status.orbit_leaves_domain
-    if not ordered or abs(winding - p) > 1e-6 or wrong_index:
-        return Status.branch_changed
-    if degenerate:
-        return Status.degenerate
-    return Status.ok
+    """Status codes, elementwise over arrays of orbits; the first failing check decides."""
+    return np.select(
+        [~finite, residual > RESIDUAL_TOL, leaves | ~inward,
+         ~ordered | (np.abs(winding - p) > 1e-6) | wrong_index, degenerate],
+        [Status.nonfinite, Status.orbit_not_converged, Status.orbit_leaves_domain,
+         Status.branch_changed, Status.degenerate], Status.ok).astype(np.int32)
 
 
 def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int = 32,
@@ -936,8 +1019,12 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
     """
     if max_period < 2:
         raise ValueError(f"max_period: expected an integer ≥ 2, got {max_period}")
+    # One curve evaluation serves the bouncing-ball torus, the convexity test and the fine
+    # grids the max-plus grids are integrated over.
+    samples = _uniform_samples(curve, [bouncing_grid] + [OVERSAMPLE * n for n in _grid_sizes(
+        max_period, grid).values()])
     if check_domain is None:
-        check_domain = not _polygon_convex(curve, bouncing_grid)
+        check_domain = not _polygon_convex(samples[bouncing_grid])
     polygon = boundary_polygon(curve) if check_domain else None
     solve = partial(_refined_rows, curve, slots=max_period, iterates=iterates,
                     resonance_order=resonance_order, steps=newton_steps, polygon=polygon)
@@ -945,8 +1032,8 @@ def find_orbits(curve: Curve, max_period: int = 7, iterates: int = 3, grid: int 
 
     # Birkhoff orbits and bouncing balls (all sign-change cells of the two end cosines on a torus
     # grid) in one solve: the few seeds that never settle then share one tail batch.
-    seeds = _seed_batch(curve, max_period, grid, candidates)
-    bouncing = [(1, 2, CRITICAL, t) for t in _torus_candidates(curve, bouncing_grid)[:512]]
+    seeds = _seed_batch(curve, max_period, grid, candidates, samples=samples)
+    bouncing = [(1, 2, CRITICAL, t) for t in _torus_candidates(samples[bouncing_grid])[:512]]
     solved = solve(seeds + bouncing, max_step=np.repeat(
         [2 * np.pi / grid, 2 * np.pi / bouncing_grid], [len(seeds), len(bouncing)]))
     bouncing = [r for r in solved if r["branch"] == CRITICAL]
@@ -983,26 +1070,33 @@ def _refined_rows(curve, seeds, slots, iterates, resonance_order, steps, max_ste
     targets = [{MAX: 0, MINIMAX: 1}.get(branch, -1) for _, _, branch, _ in seeds]
     data, where, first = _solve_seeds(curve, [s[3] for s in seeds], [s[1] for s in seeds],
                                       targets, slots, iterates, resonance_order, steps, max_step)
-    return [_row(curve, data, where[k], p, q, branch, polygon, iterates)
-            for k, (p, q, branch, _) in enumerate(seeds) if first[k]]
+    keep = np.nonzero(first)[0]
+    p, q, branch = (np.asarray([seeds[k][i] for k in keep], dtype=int) for i in range(3))
+    return _data_rows(data, where[keep], p, q, branch, polygon)
 
 
-def _row(curve, out, k, p, q, branch, polygon, iterates):
+def _data_rows(out, k, p, q, branch, polygon):
+    """Row dicts for the entries ``k`` of the batched orbit data ``out`` reported as (p, q,
+    branch); statuses by :func:`_status_of`, Maslov indices left to :func:`_to_set`."""
     (t, jets, length, mono, tr, kind, angle, lyap, dets, residual, index, degenerate, resonant,
-     ordered, inward, winding) = jax.tree_util.tree_map(lambda o: o[k], out)
-    maslov = None  # filled for the orbits that are kept (see _to_set)
-    finite = bool(np.all(np.isfinite(t)) and np.isfinite(length) and np.all(np.isfinite(mono)))
-    leaves = bool(polygon is not None and finite
-                  and orbit_leaves_domain(polygon, np.asarray(jets.point), t, q))
-    wanted = 0 if branch == MAX else 1
-    wrong_index = (branch != CRITICAL) and int(index) != wanted and not bool(degenerate)
-    status = _status_of(float(residual), bool(ordered), float(winding), p, bool(inward), leaves,
-                        bool(degenerate), finite, wrong_index)
-    return dict(p=p, q=q, branch=branch, t=t, jets=jets, length=float(length),
-                monodromy=mono, trace=float(tr), kind=int(kind), angle=float(angle),
-                lyapunov=float(lyap), det_iterates=dets, maslov=maslov, reflections=q,
-                residual=float(residual), hessian_index=int(index), status=int(status),
-                degenerate=bool(degenerate), resonant=bool(resonant), near_tie=False)
+     ordered, inward, winding) = jax.tree_util.tree_map(lambda o: np.asarray(o)[k], out)
+    finite = (np.all(np.isfinite(t), axis=1) & np.isfinite(length)
+              & np.all(np.isfinite(mono), axis=(1, 2)))
+    leaves = np.asarray([polygon is not None and bool(finite[i])
+                         and orbit_leaves_domain(polygon, jets.point[i], t[i], q[i])
+                         for i in range(k.size)], dtype=bool)
+    wrong_index = (branch != CRITICAL) & (index != np.where(branch == MAX, 0, 1)) & ~degenerate
+    status = _status_of(residual, ordered, winding, p, inward, leaves, degenerate, finite,
+                        wrong_index)
+    columns = {"p": p, "q": q, "branch": branch, "length": length, "trace": tr, "kind": kind,
+               "angle": angle, "lyapunov": lyap, "reflections": q, "residual": residual,
+               "hessian_index": index, "status": status, "degenerate": degenerate,
+               "resonant": resonant}
+    scalars = {name: value.tolist() for name, value in columns.items()}
+    return [dict({name: value[i] for name, value in scalars.items()},
+                 t=t[i], jets=billiard.Jets(*(x[i] for x in jets)), monodromy=mono[i],
+                 det_iterates=dets[i], maslov=None, near_tie=False)
+            for i in range(k.size)]
 
 
 def _same_orbit(a, b, tol=1e-7):
@@ -1028,9 +1122,10 @@ def _pick(group, branch):
     return best
 
 
-def _polygon_convex(curve, n):
-    """Whether consecutive unit tangents at n nodes always turn left (strict convexity proxy)."""
-    _, _, vel = (np.asarray(a) for a in _samples(curve, n))
+def _polygon_convex(samples):
+    """Whether consecutive unit tangents at the uniform ``samples`` (t, γ, γ') always turn left
+    (strict convexity proxy)."""
+    vel = samples[2]
     nxt = np.roll(vel, -1, axis=0)
     return bool(np.all(vel[:, 0] * nxt[:, 1] - vel[:, 1] * nxt[:, 0] > 0))
 
@@ -1054,11 +1149,10 @@ def _bouncing_balls(solved):
 
 
 def _to_set(rows, iterates) -> OrbitSet:
-    for q in sorted({r["q"] for r in rows}):
-        group = [r for r in rows if r["q"] == q]
-        jets = tuple(np.stack([np.asarray(r["jets"][i])[:q] for r in group]) for i in range(3))
-        for r, maslov in zip(group, _maslov_batch(jets, iterates)):
-            r["maslov"] = maslov
+    jets = tuple(np.stack([np.asarray(r["jets"][i]) for r in rows]) for i in range(3))
+    for r, maslov in zip(rows, _maslov_batch(jets, np.asarray([r["q"] for r in rows]),
+                                             iterates)):
+        r["maslov"] = maslov
     field = lambda name, dtype=None: np.asarray([r[name] for r in rows], dtype=dtype)  # noqa: E731
     return OrbitSet(
         p=field("p", np.int32), q=field("q", np.int32), branch=field("branch", np.int32),
