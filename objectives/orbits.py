@@ -269,24 +269,6 @@ def _winding(t, q):
 # Newton's method on ∇W = 0 with a pseudo-inverse Hessian
 
 
-def _length_derivatives(curve, t, q):
-    """(∇W, ∇²W, mask of the q active slots) at padded bounce parameters t."""
-    jets = billiard.bounce_jets(curve, t)
-    chords = billiard.chords_from_jets(jets, q)
-    grad = billiard.length_gradient_from(jets, chords, q)
-    hess = billiard.length_hessian_from(jets, chords, q)
-    return grad, hess, jnp.arange(t.shape[0]) < q
-
-
-def _newton_direction(curve, t, q):
-    grad, hess, active = _length_derivatives(curve, t, q)
-    hess = hess + jnp.diag(jnp.where(active, 0.0, 1.0))
-    lam, vec = jnp.linalg.eigh(hess)
-    scale = jnp.max(jnp.abs(lam))
-    inv = jnp.where(jnp.abs(lam) > 1e-11 * scale, 1.0 / lam, 0.0)
-    return -(vec * inv) @ (vec.T @ grad), (vec * inv) @ vec.T, grad
-
-
 def _grad_hess(curve, t, q):
     return _grad_hess_from(billiard.bounce_jets(curve, t), q)
 
@@ -302,18 +284,23 @@ def _grad_hess_from(jets, q):
     return grad, hess + jnp.diag(jnp.where(active, 0.0, pad))
 
 
-def _following_step(curve, t, q, target, max_step):
-    """One clipped eigenvector-following step of :func:`_newton` from t."""
-    grad, hess = _grad_hess(curve, t, q)
-    return _clip_step(_eigen_step(grad, hess, target), max_step)
-
-
 def _clip_step(delta, max_step):
     return jnp.clip(jnp.where(jnp.isfinite(delta), delta, 0.0), -max_step, max_step)
 
 
 def _eigen_step(grad, hess, target):
-    """The unclipped step of :func:`_newton` from the Hessian eigendecomposition."""
+    """Step of Newton's method on ∇W = 0 that follows the wanted Morse type (eigenvector
+    following), from the Hessian eigendecomposition.
+
+    In the Hessian eigenbasis (λ_i ascending, gradient components c_i) the step is
+    δ_i = −c_i / (σ_i (|λ_i| + ε)), with σ_i the wanted sign of the curvature: all −1 for a
+    maximum (``target`` 0), −1 except +1 on the largest eigenvalue for a min-max orbit
+    (``target`` 1), sign(λ_i) for any critical point (``target`` −1). Near a nondegenerate orbit
+    of the wanted type this is Newton's method; elsewhere it climbs (descends) where it should,
+    so a seed is not captured by a critical point of the wrong type. ε = 10⁻¹⁰·max|λ| acts as a
+    pseudo-inverse along orbit families (zero eigenvalues, zero gradient). Callers clip steps
+    to a maximal length and stop once the step is below a tolerance.
+    """
     size = grad.shape[0]
     rank = jnp.arange(size)
     lam, vec = jnp.linalg.eigh(hess)
@@ -382,59 +369,12 @@ def _pivot_step(grad, hess, q, target):
     return -jnp.stack(x), inertia & ~tiny
 
 
-def _newton(curve, t, q, steps, max_step, target=-1, tol=NEWTON_TOL):
-    """Newton's method on ∇W = 0 that follows the wanted Morse type (eigenvector following).
-
-    In the Hessian eigenbasis (λ_i ascending, gradient components c_i) the step is
-    δ_i = −c_i / (σ_i (|λ_i| + ε)), with σ_i the wanted sign of the curvature: all −1 for a
-    maximum (``target`` 0), −1 except +1 on the largest eigenvalue for a min-max orbit
-    (``target`` 1), sign(λ_i) for any critical point (``target`` −1). Near a nondegenerate orbit
-    of the wanted type this is Newton's method; elsewhere it climbs (descends) where it should,
-    so a seed is not captured by a critical point of the wrong type. ε = 10⁻¹⁰·max|λ| acts as a
-    pseudo-inverse along orbit families (zero eigenvalues, zero gradient). Steps are clipped to
-    ``max_step``; the loop stops after ``steps`` steps or once the step is below ``tol``.
-    """
-    _, t, _ = _newton_resume(curve, t, q, target, 0, jnp.inf, steps, max_step, tol)
-    # Unused slots follow bounce 0 so padded entries stay harmless.
-    return jnp.where(jnp.arange(t.shape[0]) < q, t, t[0])
-
-
-def _newton_resume(curve, t, q, target, count, last, steps, max_step, tol=NEWTON_TOL,
-                   horizon=None):
-    """The loop of :func:`_newton` continued from ``count`` steps taken and ``last`` step size:
-    (steps taken, t, last step size). Stopping and resuming gives the same iterates as one run.
-
-    With ``horizon`` (the step budget of the whole run) an exact 2-cycle, t_{k+1} = t_{k−1}
-    bitwise, ends the loop at once with the state the run would reach after ``horizon`` steps:
-    the iteration depends on t alone, so it alternates between the two points forever (clipped
-    steps that flip sign on a seed that cannot settle)."""
-    step = partial(_following_step, curve, q=q, target=target, max_step=max_step)
-
-    def going(state):
-        i, size = state[0], state[2]
-        return (i < steps) & (size > tol)
-
-    start = (jnp.asarray(count, jnp.int32), t, jnp.asarray(last, t.dtype))
-    if horizon is None:
-        def body(state):
-            i, t, _ = state
-            delta = step(t)
-            return i + 1, t + delta, jnp.max(jnp.abs(delta))
-
-        return jax.lax.while_loop(going, body, start)
-
-    def body_cycles(state):
-        i, t, _, before = state
-        return _cycle_update(i, t, before, step(t), horizon)
-
-    # ``before`` starts as NaN: no cycle can be recognised on the first step of a call.
-    i, t, last, _ = jax.lax.while_loop(going, body_cycles, start + (jnp.full_like(t, jnp.nan),))
-    return i, t, last
-
-
 def _cycle_update(i, t, before, delta, horizon):
     """State (i, t, |δ|, t_prev) after the step δ from t, jumping to the end of the budget
-    ``horizon`` on an exact 2-cycle (the iterate ``before`` t comes back)."""
+    ``horizon`` on an exact 2-cycle (the iterate ``before`` t comes back): the iteration
+    depends on t alone, so it would alternate between the two points forever (clipped steps
+    that flip sign on a seed that cannot settle). Stopping and resuming gives the same
+    iterates as one run."""
     new = t + delta
     cycle = jnp.all(new == before)
     even = (horizon - (i + 1)) % 2 == 0
@@ -443,7 +383,7 @@ def _cycle_update(i, t, before, delta, horizon):
 
 
 def _lane_steps(curve, t, q, target, max_step, valid):
-    """The steps of :func:`_newton` for a batch of lanes: the LDLᵀ Newton step where the
+    """The steps of the Newton iteration (:func:`_eigen_step`) for a batch of lanes: the LDLᵀ Newton step where the
     Hessian has the wanted inertia, the eigenvector step elsewhere. The (costly) eigenvalue
     problems are solved only for the lanes that need them, a few gathered lanes at a time (one
     small compiled eigensolver instead of one per batch size)."""
@@ -456,7 +396,7 @@ def _lane_steps(curve, t, q, target, max_step, valid):
 
 
 def _steps_from_derivatives(grad, hess, q, target, max_step, valid):
-    """Clipped steps of :func:`_newton` for a batch of lanes with these (∇W, ∇²W): LDLᵀ where
+    """Clipped Newton steps (:func:`_eigen_step`) for a batch of lanes with these (∇W, ∇²W): LDLᵀ where
     the inertia is right, eigenvector steps for the ``valid`` lanes where it is not."""
     lanes = grad.shape[0]
     delta, usable = jax.vmap(_pivot_step)(grad, hess, q, target)
@@ -489,7 +429,8 @@ def _queue_stage(curve, runs, q, target, max_step, cap, steps, lanes):
     """Advance every unfinished seed of ``runs`` to ``cap`` steps (or its end) on ``lanes``
     parallel lanes; a lane whose seed stops takes the next waiting seed at once.
 
-    Each seed follows the iteration of :func:`_newton_resume` (``horizon`` = ``steps``); only
+    Each seed follows t ← t + clipped step (:func:`_eigen_step`, 2-cycle ends by
+    :func:`_cycle_update` with ``horizon`` = ``steps``); only
     the batching differs: a vmapped loop over a fixed batch runs until its slowest seed stops,
     whereas here the lanes stay busy as long as seeds wait."""
     count = runs.t.shape[0]
@@ -557,7 +498,7 @@ def _merge(t, q, target, rep, decimals):
 
 @partial(jax.jit, static_argnames=("steps", "lanes"))
 def _newton_queue(curve, t, q, target, max_step, active, caps, steps, lanes=8):
-    """:func:`_newton` with 2-cycle ends (budget ``steps``) for every seed where ``active``, in
+    """Newton's method (:func:`_eigen_step`) with 2-cycle ends (budget ``steps``) for every seed where ``active``, in
     one call on ``lanes`` parallel lanes.
 
     Phases advance every moving seed to the step caps ``caps`` (the last is the budget); after
@@ -923,7 +864,7 @@ MAX_RESEED_GRID = 128
 
 def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_order, steps,
                  max_step):
-    """Refine every seed by :func:`_newton` (at most ``steps`` steps), then take the orbit data
+    """Refine every seed by Newton's method (:func:`_eigen_step`, at most ``steps`` steps), then take the orbit data
     of the distinct results. Returns (batched data, representative index per seed): seeds that
     converged to the same configuration (same q and target, same bounce set) share one entry.
 
@@ -1170,7 +1111,8 @@ def _to_set(rows, iterates) -> OrbitSet:
 
 
 def _warm_newton(curve, t, q, target, steps, max_step, curve_axis=None, tol=NEWTON_TOL):
-    """:func:`_newton` for a batch of orbits in one loop (``curve_axis`` 0: one curve per orbit).
+    """Newton's method (:func:`_eigen_step`) for a batch of orbits in one loop (``curve_axis``
+    0: one curve per orbit).
 
     Each orbit stops after ``steps`` steps or once its step is below ``tol``; steps are LDLᵀ
     Newton steps where the Hessian has the wanted inertia (the warm start is next to the orbit,
