@@ -367,8 +367,11 @@ def make_continuation(problem: Problem, spec: SearchSpec, linearize: Callable | 
             # Gauss–Newton linearizes at every iterate; the chord method evaluates and keeps
             # the base J, linearizing only when the residual contracts by less than half and
             # once at the converged point (that J is the next step's base)
-            values, J, st, codes = jax.lax.cond(c.want_jacobian, linearize, values_only,
-                                                c.p, c.states)
+            if newton:  # static: its program holds no evaluation-only branch
+                values, J, st, codes = linearize(c.p, c.states)
+            else:
+                values, J, st, codes = jax.lax.cond(c.want_jacobian, linearize, values_only,
+                                                    c.p, c.states)
             r = kept(values)
             size = jnp.max(jnp.abs(r)) if problem.n_kept else jnp.asarray(0.0)
             converged = size <= cs.tolerance
