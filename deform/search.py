@@ -33,12 +33,13 @@ import optax
 from objectives import geometry
 from objectives.curve import Curve, nodes
 from objectives.distance import DistanceReference, distance_reference, distance_to
+from objectives.programs import persistent_jit
 from objectives.status import Status, code, combine
 
 from . import invariants as registry
 from .errors import ConfigError
 from .families import ShapeFamily
-from .programs import persistent_jit
+from .runtime import cache_dir
 from .searchspec import InvariantOptions, SearchSpec
 
 SIMPLICITY_FLOOR = 1e-3
@@ -585,7 +586,7 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     """Cold start: evaluator inits, start values, scales, rank of the kept Jacobian.
 
     ``identity`` (text that determines the problem, e.g. the config) keeps the step program on
-    disk (:mod:`deform.programs`), so a later run of the same config does not trace it again.
+    disk (:mod:`objectives.programs`), so a later run of the same config does not trace it again.
     """
     x0 = jnp.asarray(problem.start)
     states = registry.init_families(problem.evaluators, problem.curve(x0))
@@ -607,7 +608,7 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
             start_linearize = persistent_jit(
                 lambda x, s: _linearized(problem, x, s), (x0, states),
                 jax.tree_util.tree_structure((0, 0, states, 0)),
-                f"search/{spec.mode}/linearize\n{identity}")
+                f"search/{spec.mode}/linearize\n{identity}", cache_dir())
         values, J_start, states, codes = start_linearize(x0, states)
         state = _strongly_typed(init(provisional, key, states, values, J_start))
     update = _same_types(update)
@@ -618,7 +619,7 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     else:
         out_tree = jax.tree_util.tree_structure((state, StepInfo(*[0] * len(StepInfo._fields))))
         update = persistent_jit(update, (provisional, state), out_tree,
-                                f"search/{spec.mode}\n{identity}")
+                                f"search/{spec.mode}\n{identity}", cache_dir())
     if carries:
         # the update's priming pass linearizes at the start (targets do not enter it), so the
         # run compiles one program instead of two

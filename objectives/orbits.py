@@ -43,7 +43,7 @@ import jax.numpy as jnp
 import numpy as np
 from numpy.lib.stride_tricks import as_strided
 
-from . import billiard
+from . import billiard, programs
 from .curve import Array, Curve
 from .status import Status
 
@@ -498,8 +498,8 @@ def _merge(t, q, target, rep, decimals):
 
 @partial(jax.jit, static_argnames=("steps", "lanes"))
 def _newton_queue(curve, t, q, target, max_step, active, caps, steps, lanes=8):
-    """Newton's method (:func:`_eigen_step`) with 2-cycle ends (budget ``steps``) for every seed where ``active``, in
-    one call on ``lanes`` parallel lanes.
+    """Newton's method (:func:`_eigen_step`) with 2-cycle ends (budget ``steps``) for every
+    seed where ``active``, in one call on ``lanes`` parallel lanes.
 
     Phases advance every moving seed to the step caps ``caps`` (the last is the budget); after
     each, seeds that reached the same configuration to 10⁻⁶ continue as one (``rep``, the seed
@@ -529,6 +529,31 @@ def _data_batch(curve, t, q, iterates, resonance_order):
         return (t,) + orbit_data(curve, t, q, iterates, resonance_order) + (_winding(t, q),)
 
     return jax.vmap(one)(t, q)
+
+
+_KEPT: dict = {}
+"""Cold-path programs loaded in this process, by (name, boundary, static arguments, types)."""
+
+
+def _kept(fn, out_tree, curve, *args, **static):
+    """``fn(curve, *args, **static)`` for a jitted cold-path ``fn``, through a program kept on
+    disk (:mod:`objectives.programs`) when the boundary is a built-in family: a later process
+    then loads it instead of tracing and lowering it (about half a second of the first cold
+    solve). ``out_tree`` is the structure of ``fn``'s output."""
+    identity = programs.boundary_identity(curve.fn)
+    if identity is None:
+        return fn(curve, *args, **static)
+    types = tuple((np.shape(a), np.result_type(a).str) for a in args)
+    key = (fn.__name__, identity, tuple(sorted(static.items())), types)
+    if key not in _KEPT:
+        _KEPT[key] = programs.persistent_jit(
+            lambda curve, *args: fn(curve, *args, **static), (curve, *args), out_tree,
+            f"objectives.orbits.{fn.__name__}\n{identity}\n{sorted(static.items())}")
+    return _KEPT[key](curve, *args)
+
+
+_QUEUE_OUT = jax.tree_util.tree_structure((0, 0))
+_DATA_OUT = jax.tree_util.tree_structure((0, billiard.Jets(0, 0, 0)) + (0,) * 14)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -883,14 +908,14 @@ def _solve_seeds(curve, t_seeds, q_seeds, targets, slots, iterates, resonance_or
     caps = np.asarray([min(c, steps) for c in NEWTON_CAPS] + [steps], dtype=np.int32)
     # One padded size for up to QUEUE seeds, so one compilation serves (almost) every call.
     idx = np.minimum(np.arange(max(QUEUE, -(-count // 128) * 128)), count - 1)
-    out = _newton_queue(curve, t[idx], qs[idx], targets[idx], max_step[idx],
-                        np.arange(idx.size) < count, caps, steps)
+    out = _kept(_newton_queue, _QUEUE_OUT, curve, t[idx], qs[idx], targets[idx], max_step[idx],
+                np.arange(idx.size) < count, caps, steps=steps)
     t = np.asarray(out[0])[:count]
     rep = np.asarray(out[1])[:count]
     rep = _representatives(t, qs, targets, np.unique(rep))[rep]
     distinct = np.unique(rep)
-    data = [_data_batch(curve, t[idx], qs[idx], iterates, resonance_order)
-            for idx in _chunks(distinct, SOLVE_CHUNK)]
+    data = [_kept(_data_batch, _DATA_OUT, curve, t[idx], qs[idx], iterates=iterates,
+                  resonance_order=resonance_order) for idx in _chunks(distinct, SOLVE_CHUNK)]
     data = jax.tree_util.tree_map(lambda *xs: np.concatenate([np.asarray(x) for x in xs]), *data)
     # Chunks are padded: entry j of ``data`` belongs to seed distinct[j].
     where = np.zeros(count, dtype=int)

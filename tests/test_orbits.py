@@ -432,3 +432,37 @@ def test_max_orbits_match_a_brute_force_global_maximum():
             ref = _brute_force_max_length(curve, q, rng)
             error = length[f"1/{q},max"] - ref
             assert abs(error) < 1e-9, (seed, trial, q, error)
+
+
+def test_kept_cold_programs_reproduce_the_plain_search(tmp_path, monkeypatch):
+    """The cold search's programs kept on disk (objectives.programs) give the plain jitted
+    search's orbits bit for bit, when written and when reloaded by a later process (simulated
+    by forgetting the loaded programs); a boundary that is not a built-in frozen family is never
+    kept (common practice: a cache must not change results, nor outlive the code it keys)."""
+    from objectives import programs
+
+    fam = Polar.build(1.0, cos=[0.0, 0.06, 0.02], sin=[0.0, 0.0, 0.015], modes=4)
+    curve = Curve(fam.boundary, jnp.asarray(fam.initial_params()))
+    monkeypatch.setattr(programs, "persistent_jit",
+                        partial(programs.persistent_jit, directory=tmp_path))
+    monkeypatch.setattr(orb, "_KEPT", {})
+    with monkeypatch.context() as plain:
+        plain.setattr(programs, "boundary_identity", lambda fn: None)
+        reference = orb.find_orbits(curve, 5)
+    assert not (tmp_path / "programs").exists()
+    written = orb.find_orbits(curve, 5)
+    assert len(list((tmp_path / "programs").glob("*" + programs.SUFFIX))) == 2
+    orb._KEPT.clear()
+    reloaded = orb.find_orbits(curve, 5)
+    for a, b, c in zip(reference, written, reloaded):
+        np.testing.assert_array_equal(np.asarray(a), np.asarray(b))
+        np.testing.assert_array_equal(np.asarray(a), np.asarray(c))
+
+    def free_function(params, t):
+        return fam.boundary(params, t)
+
+    assert programs.boundary_identity(free_function) is None
+    assert programs.boundary_identity(lambda p, t: fam.boundary(p, t)) is None
+    other = Polar.build(1.0, cos=[0.0, 0.05], modes=4)
+    assert None is not programs.boundary_identity(fam.boundary) != programs.boundary_identity(
+        other.boundary)

@@ -355,7 +355,7 @@ def test_kept_programs_are_evicted_least_recently_used_first(tmp_path):
     """LRU eviction of kept step programs by modification time (common practice for caches)."""
     import os
 
-    from deform import programs
+    from objectives import programs
 
     for i in range(5):
         path = tmp_path / f"p{i}{programs.SUFFIX}"

@@ -9,7 +9,7 @@ Plain script (`python tests/bench/bench_search.py [--quick]`). Figures, measured
   step (target ≤ 30 ms), with the cost of one Jacobian and of one warm evaluation;
 * 1000 Adam steps on 18 warm orbit lengths of a 16-mode shape (prototype figure: 1.5 s);
 * compile time of prepare + first step as `deform run` does it (with the kept step program of
-  deform.programs) in a fresh process with an empty cache (cold) and again in a second fresh
+  objectives.programs) in a fresh process with an empty cache (cold) and again in a second fresh
   process with the same cache (cached), for a small problem and (full run) the problem above;
   targets 20 s / 2 s.
 """

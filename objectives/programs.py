@@ -1,15 +1,18 @@
-"""Step programs kept on disk, so a second run of a config neither traces nor compiles.
+"""Programs kept on disk, so a later process neither traces nor compiles them again.
 
 JAX's persistent compilation cache skips XLA compilation, but every process still traces and
-lowers the Python function, which for a search step takes seconds. :func:`persistent_jit`
-exports the jitted function once (``jax.export``: StableHLO, platform-independent) under a key
-of (identity, argument types, the source of ``deform``/``objectives``, the JAX version) and
-later processes reload it; its XLA executable then comes from the persistent cache. First and
-later runs call the same exported program, so their results agree bit for bit.
+lowers the Python function, which for a search step takes seconds (and about half a second for
+the cold orbit search). :func:`persistent_jit` exports the jitted function once (``jax.export``:
+StableHLO, platform-independent) under a key of (identity, argument types, the source of
+``deform``/``objectives``, the JAX version) and later processes reload it; its XLA executable
+then comes from the persistent cache. First and later runs call the same exported program, so
+their results agree bit for bit. Programs live in ``<directory>/programs``, by default beside
+JAX's compilation cache (no cache configured: plain ``jax.jit``).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import hashlib
 import os
@@ -18,8 +21,6 @@ from pathlib import Path
 from typing import Any, Callable
 
 import jax
-
-from .runtime import cache_dir
 
 PACKAGES = ("deform", "objectives")
 SUFFIX = ".stablehlo"
@@ -67,8 +68,12 @@ def persistent_jit(fn: Callable, example_args: tuple, out_tree, identity: str,
     """
     from jax import export
 
+    if directory is None:
+        if not jax.config.jax_compilation_cache_dir:
+            return jax.jit(fn)
+        directory = Path(jax.config.jax_compilation_cache_dir)
     leaves, in_tree = jax.tree_util.tree_flatten(example_args)
-    folder = (directory or cache_dir()) / "programs"
+    folder = Path(directory) / "programs"
     path = folder / (program_key(identity + str(in_tree) + str(out_tree), leaves) + SUFFIX)
 
     def flat(*flat_args):
@@ -87,6 +92,22 @@ def persistent_jit(fn: Callable, example_args: tuple, out_tree, identity: str,
         return jax.tree_util.tree_unflatten(out_tree, call(*jax.tree_util.tree_leaves(args)))
 
     return compiled
+
+
+def boundary_identity(fn: Callable) -> str | None:
+    """A text that determines a curve's boundary function across processes, or None.
+
+    Only bound methods of the frozen-dataclass families defined in ``deform``/``objectives``
+    qualify: their repr lists every field and their code is in :func:`source_digest`. Anything
+    else (a function or a family defined elsewhere) may change without the key noticing."""
+    owner = getattr(fn, "__self__", None)
+    if owner is None or not dataclasses.is_dataclass(owner) or not getattr(
+            type(owner), "__dataclass_params__").frozen:
+        return None
+    if type(owner).__module__.split(".")[0] not in PACKAGES:
+        return None
+    text = f"{type(owner).__module__}.{type(owner).__qualname__}.{fn.__name__}:{owner!r}"
+    return None if " at 0x" in text else text
 
 
 def _load(path: Path, n_out: int):
