@@ -676,7 +676,8 @@ def unflatten_state(template: SearchState, vector: np.ndarray) -> SearchState:
         offset += size
     if offset != vector.size:
         raise ConfigError(f"--resume: the record's state has {vector.size} entries, this config "
-                          f"needs {offset} (was the record made with another config?)")
+                          f"needs {offset} (was the record made with another config or an older "
+                          "version?)")
     # committed like the update's outputs, so the next call reuses the compiled program
     return jax.device_put(jax.tree_util.tree_unflatten(treedef, out), jax.devices()[0])
 
