@@ -552,6 +552,7 @@ def _kept(fn, out_tree, curve, *args, **static):
     return _KEPT[key](curve, *args)
 
 
+_ARRAY_OUT = jax.tree_util.tree_structure(0)
 _QUEUE_OUT = jax.tree_util.tree_structure((0, 0))
 _DATA_OUT = jax.tree_util.tree_structure((0, billiard.Jets(0, 0, 0)) + (0,) * 14)
 
@@ -574,7 +575,7 @@ def _evaluate(curve, t: np.ndarray) -> np.ndarray:
     """:func:`_jets1` at host parameters t, padded to a multiple of ``SAMPLE_BUCKET``."""
     padded = np.zeros(-(-t.size // SAMPLE_BUCKET) * SAMPLE_BUCKET)
     padded[:t.size] = t
-    return np.asarray(_jets1(curve, jnp.asarray(padded)))[:t.size]
+    return np.asarray(_kept(_jets1, _ARRAY_OUT, curve, padded))[:t.size]
 
 
 def _nodes(n: int) -> np.ndarray:

@@ -451,9 +451,11 @@ def test_kept_cold_programs_reproduce_the_plain_search(tmp_path, monkeypatch):
         reference = orb.find_orbits(curve, 5)
     assert not (tmp_path / "programs").exists()
     written = orb.find_orbits(curve, 5)
-    assert len(list((tmp_path / "programs").glob("*" + programs.SUFFIX))) == 2
+    kept = sorted((tmp_path / "programs").glob("*" + programs.SUFFIX))
+    assert len(kept) >= 3  # Newton queue, orbit data, curve sampler
     orb._KEPT.clear()
     reloaded = orb.find_orbits(curve, 5)
+    assert sorted((tmp_path / "programs").glob("*" + programs.SUFFIX)) == kept
     for a, b, c in zip(reference, written, reloaded):
         np.testing.assert_array_equal(np.asarray(a), np.asarray(b))
         np.testing.assert_array_equal(np.asarray(a), np.asarray(c))
