@@ -174,16 +174,15 @@ def _lane_jacobian(evs, curve_of, x, state):
     parameters are copied per lane and entry j's row is the gradient on copy lanes[j]; seeds
     that put the cotangent on the r-th entry of every lane at once give every lane's r-th row
     in one reverse pass."""
-    shared = evs[0].shared
     count = jax.tree_util.tree_leaves(state)[0].shape[0]
+    # the same shared evaluation, advanced on the per-lane copies
+    per_lane = [ev._replace(shared=ev.shared._replace(advance=ev.shared.advance_lanes))
+                for ev in evs]
 
     def lane_values(x_lanes):
-        st, status = shared.advance_lanes(jax.vmap(curve_of)(x_lanes), state)
-        v = [ev.shared.read(st) for ev in evs]
-        v = [jnp.atleast_1d(u).astype(jnp.float64) for u in v]
-        c = [jnp.max(jnp.atleast_1d(jnp.asarray(finite_or(u, status), dtype=jnp.int32)))
-             for u in v]
-        return jnp.concatenate(v), (v, tuple(st for _ in evs), c)
+        v, st, c = evaluate_families(per_lane, jax.vmap(curve_of)(x_lanes),
+                                     [state] * len(evs))
+        return jnp.concatenate(v), (v, st, c)
 
     lane = np.concatenate([np.asarray(ev.shared.lanes, dtype=int) for ev in evs])
     rank = np.zeros_like(lane)

@@ -686,15 +686,19 @@ def start_reference(problem: Problem) -> DistanceReference:
     """The start shape's side of the distance D (empty unless the move is the distance)."""
     if problem.move_kind != "distance":
         return DistanceReference(jnp.zeros(0, jnp.complex128), jnp.zeros(0, jnp.complex128))
-    return _reference(problem.curve(jnp.asarray(problem.start)), problem.distance_points)
+    return _reference(problem)
 
 
-_reference = jax.jit(distance_reference, static_argnames=("points",))
+def _reference(problem: Problem) -> DistanceReference:
+    return _jitted_reference(problem.curve(jnp.asarray(problem.start)), problem.distance_points)
+
+
+_jitted_reference = jax.jit(distance_reference, static_argnames=("points",))
 
 
 def distance_meter(problem: Problem) -> Callable[[Any], float]:
     """Jitted x ↦ exact isometry-invariant distance D(x, start) (objectives.distance)."""
-    reference = _reference(problem.curve(jnp.asarray(problem.start)), problem.distance_points)
+    reference = _reference(problem)
     meter = jax.jit(lambda x: distance_to(reference, problem.curve(x)))
     return lambda params: float(meter(jnp.asarray(params)))
 
