@@ -40,6 +40,19 @@ class Shared(NamedTuple):
     read: Callable[[Any], Any]
     advance_lanes: Callable[[Curve, Any], tuple[Any, Any]] | None = None
     lanes: tuple[int, ...] | None = None
+    pool: Pool | None = None
+
+
+class Pool(NamedTuple):
+    """Families whose warm solves can merge into one (e.g. every orbit family tracking orbits
+    with equal iterates, whatever their max period): :func:`join_pools` hands the evaluators
+    whose ``Shared.pool`` has an equal ``key`` to ``join(evaluators) -> evaluators``, which
+    rebuilds them (same labels and values) around one shared solve; ``need`` is what each one
+    asks of the pool, read by ``join``."""
+
+    key: Any
+    join: Callable[[list], list]
+    need: Any
 
 
 class Evaluator(NamedTuple):
@@ -54,6 +67,24 @@ class Evaluator(NamedTuple):
     evaluate: Callable[[Curve, Any], tuple[Any, Any, Any]]
     recheck: Callable[[Curve, Any], tuple[Any, Any]] | None = None
     shared: Shared | None = None
+
+
+def join_pools(evaluators) -> tuple:
+    """The evaluators with every pool of two or more differently keyed members rebuilt by its
+    ``join`` into one shared warm solve (one cold search, one warm solve per evaluation), in the
+    same order. Pure: the result depends only on the evaluators' specs, not on any shape."""
+    evaluators = list(evaluators)
+    pools: dict[Any, list[int]] = {}
+    for i, ev in enumerate(evaluators):
+        if ev.shared is not None and ev.shared.pool is not None:
+            pools.setdefault(ev.shared.pool.key, []).append(i)
+    for members in pools.values():
+        if len({evaluators[i].shared.key for i in members}) < 2:
+            continue
+        joined = evaluators[members[0]].shared.pool.join([evaluators[i] for i in members])
+        for i, ev in zip(members, joined):
+            evaluators[i] = ev
+    return tuple(evaluators)
 
 
 def init_families(evaluators, curve: Curve) -> tuple:

@@ -10,6 +10,8 @@ Labels are fixed when the family is built: ``L[1/3,max]``, ``tr[2/5,minimax]``, 
 
 from __future__ import annotations
 
+from typing import Any, Callable, NamedTuple
+
 import jax
 import jax.numpy as jnp
 import numpy as np
@@ -19,7 +21,7 @@ from objectives import wave
 from objectives.status import Status, code, finite_or
 
 from .errors import ConfigError
-from .invariants import Evaluator, InvariantFamily, Shared, register
+from .invariants import Evaluator, InvariantFamily, Pool, Shared, register
 
 
 def _check_period(name: str, max_period) -> int:
@@ -41,28 +43,9 @@ def _to_state(orbits: orb.OrbitSet) -> orb.OrbitSet:
     return jax.tree_util.tree_map(jnp.asarray, orbits)
 
 
-def _birkhoff_selection(max_period, branches):
-    keys = [(p, q, orb.BRANCHES.index(b)) for p, q in orb.rotation_numbers(max_period)
-            for b in branches]
-    labels = tuple(f"{p}/{q},{orb.BRANCHES[b]}" for p, q, b in keys)
-
-    def select(orbits: orb.OrbitSet) -> orb.OrbitSet:
-        rows = []
-        for key in keys:
-            match = np.nonzero((orbits.p == key[0]) & (orbits.q == key[1])
-                               & (orbits.branch == key[2]))[0]
-            rows.append(int(match[0]))
-        return orbits.select(rows)
-
-    return labels, select
-
-
-def _recheck(max_period):
-    def recheck(curve, state):
-        statuses, _ = orb.same_orbits(curve, state)
-        return state, code(Status(int(np.max(statuses, initial=0))))
-
-    return recheck
+def _recheck(curve, state):
+    statuses, _ = orb.same_orbits(curve, state)
+    return state, code(Status(int(np.max(statuses, initial=0))))
 
 
 def _advance(curve, state):
@@ -75,22 +58,94 @@ def _advance_lanes(curves, state):
     return fresh, jnp.max(fresh.status)
 
 
-def _evaluator(labels, select, max_period, iterates, values_fn, selection, lanes):
-    """``selection`` names the orbits ``select`` keeps: families with equal (selection,
-    max_period, iterates) track the same orbits and share one warm solve. ``lanes[j]`` is the
-    selected orbit entry j of ``values_fn`` reads (every entry reads one orbit)."""
+def _take(state: orb.OrbitSet, rows: np.ndarray) -> orb.OrbitSet:
+    """The orbits at the static indices ``rows`` (a slice when they are consecutive)."""
+    if np.array_equal(rows, np.arange(rows[0], rows[0] + rows.size)):
+        return jax.tree_util.tree_map(lambda a: a[rows[0]:rows[0] + rows.size], state)
+    return jax.tree_util.tree_map(lambda a: a[rows], state)
+
+
+class _Need(NamedTuple):
+    """What one orbit family reads from its warm solve: the orbits ``keys`` of ``block``
+    (Birkhoff orbits by (p, q, branch); bouncing balls by rank, longest first), found by a cold
+    search up to ``max_period``; entry j of ``values_fn`` (applied to those orbits, in key order)
+    reads orbit ``lanes[j]``."""
+
+    block: str
+    keys: tuple
+    lanes: tuple[int, ...]
+    max_period: int
+    iterates: int
+    values_fn: Callable[[orb.OrbitSet], Any]
+
+
+def _birkhoff_rows(found: orb.OrbitSet, keys) -> list[int]:
+    return [int(np.nonzero((found.p == p) & (found.q == q) & (found.branch == b))[0][0])
+            for p, q, b in keys]
+
+
+def _bouncing_rows(found: orb.OrbitSet, ranks) -> list[int]:
+    idx = [int(k) for k in np.argsort(-found.length, kind="stable")
+           if found.q[k] == 2 and found.status[k] != Status.orbit_leaves_domain]
+    if len(idx) < len(ranks):
+        raise ConfigError(f"invariants.bouncing_balls.count: the shape has {len(idx)} "
+                          f"admissible bouncing balls, {len(ranks)} were asked for")
+    return [idx[r] for r in ranks]
+
+
+_BLOCKS = {"birkhoff": _birkhoff_rows, "bouncing": _bouncing_rows}
+
+
+def _pooled(requests: list[tuple[tuple[str, ...], _Need]]) -> list[Evaluator]:
+    """Evaluators for (labels, need) requests with equal ``iterates`` that share one cold search
+    (up to the largest max period) and one warm solve. The shared state holds each block's keys
+    once, in order of first request, so families reading the same orbits (lengths and traces)
+    never solve them twice; a family alone is a pool of one."""
+    iterates = requests[0][1].iterates
+    blocks: dict[str, list] = {}
+    for _, need in requests:
+        keys = blocks.setdefault(need.block, [])
+        keys.extend(k for k in need.keys if k not in keys)
+    if "bouncing" in blocks:  # ranks: the longest ones, whatever order they were asked in
+        blocks["bouncing"] = list(range(max(blocks["bouncing"]) + 1))
+    offset, position = 0, {}
+    for block, keys in blocks.items():
+        position.update({(block, k): offset + i for i, k in enumerate(keys)})
+        offset += len(keys)
+    max_period = max(need.max_period for _, need in requests)
+    key = ("orbits", tuple((b, tuple(k)) for b, k in blocks.items()), max_period, iterates)
 
     def init(curve):
-        return _to_state(select(orb.find_orbits(curve, max_period, iterates=iterates)))
+        found = orb.find_orbits(curve, max_period, iterates=iterates)
+        rows = [r for block, keys in blocks.items() for r in _BLOCKS[block](found, keys)]
+        return _to_state(found.select(rows))
 
-    def evaluate(curve, state):
-        fresh, status = _advance(curve, state)
-        values = values_fn(fresh)
-        return values, fresh, finite_or(values, status)
+    def evaluator(labels, need):
+        rows = np.asarray([position[(need.block, k)] for k in need.keys])
 
-    shared = Shared(("orbits", selection, max_period, iterates), _advance, values_fn,
-                    _advance_lanes, tuple(lanes))
-    return Evaluator(labels, init, evaluate, _recheck(max_period), shared)
+        def read(state):
+            return need.values_fn(_take(state, rows))
+
+        def evaluate(curve, state):
+            fresh, status = _advance(curve, state)
+            values = read(fresh)
+            return values, fresh, finite_or(values, status)
+
+        shared = Shared(key, _advance, read, _advance_lanes,
+                        tuple(int(rows[j]) for j in need.lanes), Pool(("orbits", iterates),
+                                                                      _join, need))
+        return Evaluator(labels, init, evaluate, _recheck, shared)
+
+    return [evaluator(labels, need) for labels, need in requests]
+
+
+def _join(evaluators: list[Evaluator]) -> list[Evaluator]:
+    return _pooled([(ev.labels, ev.shared.pool.need) for ev in evaluators])
+
+
+def _birkhoff_keys(max_period, branches):
+    return [(p, q, orb.BRANCHES.index(b)) for p, q in orb.rotation_numbers(max_period)
+            for b in branches]
 
 
 def _birkhoff_values(name, prefix, values_fn):
@@ -99,9 +154,10 @@ def _birkhoff_values(name, prefix, values_fn):
     def build(max_period, branches):
         max_period = _check_period(name, max_period)
         branches = _check_branches(name, branches)
-        names, select = _birkhoff_selection(max_period, branches)
-        return _evaluator(tuple(f"{prefix}[{n}]" for n in names), select, max_period, 1,
-                          values_fn, ("birkhoff", branches), range(len(names)))
+        keys = _birkhoff_keys(max_period, branches)
+        labels = tuple(f"{prefix}[{p}/{q},{orb.BRANCHES[b]}]" for p, q, b in keys)
+        need = _Need("birkhoff", tuple(keys), tuple(range(len(keys))), max_period, 1, values_fn)
+        return _pooled([(labels, need)])[0]
 
     return build
 
@@ -114,18 +170,10 @@ def _bouncing_balls(count):
     if not isinstance(count, int) or isinstance(count, bool) or count < 1:
         raise ConfigError(f"invariants.bouncing_balls.count: expected a positive integer, "
                           f"got {count!r}")
-
-    def select(orbits):
-        idx = [k for k in np.argsort(-orbits.length, kind="stable")
-               if orbits.q[k] == 2 and orbits.status[k] != Status.orbit_leaves_domain]
-        if len(idx) < count:
-            raise ConfigError(f"invariants.bouncing_balls.count: the shape has {len(idx)} "
-                              f"admissible bouncing balls, {count} were asked for")
-        return orbits.select(idx[:count])
-
     labels = tuple(f"L[bb{k}]" for k in range(count)) + tuple(f"tr[bb{k}]" for k in range(count))
-    return _evaluator(labels, select, 2, 1, lambda o: jnp.concatenate([o.length, o.trace]),
-                      ("bouncing", count), [*range(count), *range(count)])
+    need = _Need("bouncing", tuple(range(count)), (*range(count), *range(count)), 2, 1,
+                 lambda o: jnp.concatenate([o.length, o.trace]))
+    return _pooled([(labels, need)])[0]
 
 
 def _wave(max_period, iterates, boundary):
@@ -135,17 +183,19 @@ def _wave(max_period, iterates, boundary):
                           f"got {boundary!r}")
     if not isinstance(iterates, int) or isinstance(iterates, bool) or not 1 <= iterates <= 8:
         raise ConfigError(f"invariants.wave.iterates: expected an integer in 1..8, got {iterates!r}")
-    names, select = _birkhoff_selection(max_period, ("max", "minimax"))
-    labels = tuple(f"A[{n};m={m}]" for n in names for m in range(1, iterates + 1))
+    keys = _birkhoff_keys(max_period, ("max", "minimax"))
+    labels = tuple(f"A[{p}/{q},{orb.BRANCHES[b]};m={m}]" for p, q, b in keys
+                   for m in range(1, iterates + 1))
 
     def values(o):
         terms = wave.wave_coefficients(o, boundary)
         # Degenerate terms (orbit families) have no isolated amplitude: reported as 0.
         return jnp.where(terms.usable, terms.amplitude, 0.0)
 
-    return _evaluator(labels, select, max_period, iterates, values,
-                      ("birkhoff", ("max", "minimax")),
-                      [k for k in range(len(names)) for _ in range(iterates)])
+    need = _Need("birkhoff", tuple(keys), tuple(k for k in range(len(keys))
+                                                for _ in range(iterates)),
+                 max_period, iterates, values)
+    return _pooled([(labels, need)])[0]
 
 
 register(InvariantFamily(

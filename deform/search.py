@@ -155,6 +155,7 @@ def build_problem(family: ShapeFamily, spec: SearchSpec, options: InvariantOptio
             evaluators.append(registry.build(name, options.options(name), where=where))
         except (ValueError, TypeError) as err:
             raise ConfigError(f"invariants.{name}: {err}") from None
+    evaluators = registry.join_pools(evaluators)  # e.g. one orbit solve for every orbit family
     labels = tuple(f"{n}:{lab}" for n, ev in zip(names, evaluators) for lab in ev.labels)
     n_kept = sum(len(ev.labels) for ev in evaluators[:len(spec.keep)])
     if family.n_params == 0:

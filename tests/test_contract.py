@@ -258,3 +258,45 @@ def test_shared_warm_solves_equal_separate_evaluations():
         np.testing.assert_allclose(jac[offset:offset + size], own, rtol=1e-9,
                                    atol=1e-11 * float(jnp.max(jnp.abs(own))))
         offset += size
+
+
+def test_pooled_orbit_families_equal_separate_ones():
+    """Orbit families joined into one pool (``join_pools``: one cold search up to the largest
+    max period, one warm solve holding each orbit once) give the values, statuses and
+    Jacobians each family gives alone with its own cold search and warm solve (common
+    practice: merging solves must not change results). The selections overlap only in part
+    (max orbits up to q = 3, the min-max trace at q = 2, both branches for the wave terms and
+    the two bouncing balls, which are the 1/2 orbits again), so the union and the per-family
+    row positions and lanes are exercised."""
+    shape = from_family(parse_shape(Reader(SHAPE_EXAMPLES["polar"], "shape")))
+    family = shape.family
+    names = ["orbit_lengths", "area", "orbit_traces", "bouncing_balls", "wave"]
+    options = {"orbit_lengths": {"max_period": 3, "branches": ["max"]}, "area": {},
+               "orbit_traces": {"max_period": 2, "branches": ["minimax"]},
+               "bouncing_balls": {"count": 2}, "wave": {"max_period": 2, "iterates": 1}}
+    alone = [invariants.build(n, options[n]) for n in names]
+    joined = invariants.join_pools(alone)
+    assert len({ev.shared.key for ev in alone if ev.shared is not None}) == 4
+    keys = {ev.shared.key for ev in joined if ev.shared is not None}
+    assert len(keys) == 1 and joined[1] is alone[1]
+    # the pool's state holds the 1/2 and 1/3 max and the 1/2 min-max orbits and the 2 bouncing
+    # balls, once each
+    state = invariants.init_families(joined, shape.curve())[0]
+    assert state.p.shape == (5,)
+
+    def curve_of(p):
+        from objectives.curve import Curve
+
+        return Curve(family.boundary, p)
+
+    x = jnp.asarray(family.initial_params())
+    results = []
+    for evaluators in (alone, joined):
+        states = invariants.init_families(evaluators, shape.curve())
+        results.append(jax.jit(lambda x, s, evs=evaluators: invariants.linearize_families(
+            evs, curve_of, x, s))(x, states))
+    (v_alone, j_alone, _, c_alone), (v_joined, j_joined, _, c_joined) = results
+    np.testing.assert_allclose(v_joined, v_alone, rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(j_joined, j_alone, rtol=1e-9, atol=1e-11 * float(
+        jnp.max(jnp.abs(j_alone))))
+    np.testing.assert_array_equal(c_joined, c_alone)
