@@ -55,7 +55,11 @@ def _aligned_residual(a_hat: Array, b_hat: Array, k: Array, oversample: int) -> 
         c = overlap(s)
         return (c * jnp.conj(c)).real
 
-    grid = jax.vmap(c_abs2)(sigma)
+    # C on the grid σ = j/m is one length-m FFT of the zero-padded products (k placed at k mod m)
+    spread = jnp.zeros(m, prod.dtype).at[jnp.round(k).astype(jnp.int32) % m].set(
+        jax.lax.stop_gradient(prod))
+    on_grid = jnp.fft.fft(spread)
+    grid = (on_grid * jnp.conj(on_grid)).real
     s0 = jax.lax.stop_gradient(sigma[jnp.argmax(grid)])
     g = jax.grad(c_abs2)
     h = jax.grad(g)
