@@ -54,7 +54,8 @@ def _tables(prepared: Prepared, spec: SearchSpec) -> dict[str, dict[str, Column]
     }
     for name, data in evaluator_data(problem, state).items():
         steps[f"data_{name}"] = Column((data.size,), "f8", (), f"warm state of {name} "
-                                       "(e.g. tracked orbits), flattened")
+                                       "(e.g. the tracked orbits, shared by pooled orbit "
+                                       "families), flattened")
     rejected = {
         "step": Column((), "i8", (), "step that was being attempted"),
         "params": Column((n,), "f8", problem.family.param_labels, "rejected candidate"),
