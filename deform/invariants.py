@@ -87,6 +87,25 @@ def join_pools(evaluators) -> tuple:
     return tuple(evaluators)
 
 
+def state_slots(evaluators) -> tuple[int, ...]:
+    """Slot of each evaluator's warm state when families that share a solve keep one copy
+    (their states are equal by construction): see :func:`compact_states`."""
+    seen: dict[Any, int] = {}
+    return tuple(seen.setdefault(("alone", i) if ev.shared is None else ev.shared.key, len(seen))
+                 for i, ev in enumerate(evaluators))
+
+
+def compact_states(states, slots: tuple[int, ...]) -> tuple:
+    """One state per slot (the first family's), so a carried state holds no duplicates."""
+    first = {s: i for i, s in reversed(list(enumerate(slots)))}
+    return tuple(states[first[s]] for s in range(len(first)))
+
+
+def expand_states(compact, slots: tuple[int, ...]) -> tuple:
+    """Per-family states from :func:`compact_states`."""
+    return tuple(compact[s] for s in slots)
+
+
 def init_families(evaluators, curve: Curve) -> tuple:
     """Cold states of several evaluators; families with one shared key run ``init`` once."""
     done, states = {}, []

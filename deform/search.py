@@ -60,7 +60,7 @@ class SearchState(NamedTuple):
     rejections: jax.Array      # consecutive rejected attempts (int32)
     multipliers: jax.Array     # augmented-Lagrangian λ (penalty)
     opt_state: Any             # optax state (penalty), () otherwise
-    evaluator_states: tuple    # one warm state per tracked invariant family
+    evaluator_states: tuple    # one warm state per solve (Problem.slots maps families to them)
     values: jax.Array          # tracked values at params (continuation), empty otherwise
     jacobian: jax.Array        # their Jacobian ∂values/∂x at params (continuation)
     linearized: jax.Array      # values and jacobian hold the linearization at params (bool)
@@ -134,6 +134,11 @@ class Problem:
         return Curve(self.family.boundary, params)
 
     @property
+    def slots(self) -> tuple[int, ...]:
+        """Slot of each family's warm state in a search state (shared solves keep one copy)."""
+        return registry.state_slots(self.evaluators)
+
+    @property
     def move_label(self) -> str:
         if self.move_kind == "distance":
             return "distance from start"
@@ -190,9 +195,9 @@ def build_problem(family: ShapeFamily, spec: SearchSpec, options: InvariantOptio
 
 def _evaluate_all(problem: Problem, x, states):
     """(values of every tracked family, new states, per-family status codes)."""
-    values, new_states, codes = registry.evaluate_families(problem.evaluators,
-                                                           problem.curve(x), states)
-    return jnp.concatenate(values), new_states, codes
+    values, new_states, codes = registry.evaluate_families(
+        problem.evaluators, problem.curve(x), registry.expand_states(states, problem.slots))
+    return (jnp.concatenate(values), registry.compact_states(new_states, problem.slots), codes)
 
 
 def _residual(problem: Problem, ctx: Context, x, states):
@@ -223,7 +228,9 @@ def _move_objective(problem: Problem, ctx: Context, x, states):
 
 def _linearized(problem: Problem, x, states):
     """(values, ∂values/∂x, new states, status codes) by automatic differentiation."""
-    return registry.linearize_families(problem.evaluators, problem.curve, x, states)
+    values, J, new_states, codes = registry.linearize_families(
+        problem.evaluators, problem.curve, x, registry.expand_states(states, problem.slots))
+    return values, J, registry.compact_states(new_states, problem.slots), codes
 
 
 def _target_quantity(problem: Problem, x, values, J):
@@ -590,7 +597,8 @@ def prepare(problem: Problem, spec: SearchSpec, identity: str | None = None) -> 
     disk (:mod:`objectives.programs`), so a later run of the same config does not trace it again.
     """
     x0 = jnp.asarray(problem.start)
-    states = registry.init_families(problem.evaluators, problem.curve(x0))
+    states = registry.compact_states(
+        registry.init_families(problem.evaluators, problem.curve(x0)), problem.slots)
     linearize = jax.jit(lambda x, s: _linearized(problem, x, s))
     weights = jnp.asarray(step_weights(problem.family, spec.smoothness))
     init, update = MODES[spec.mode](problem, spec, linearize)
@@ -713,7 +721,8 @@ def boundary_sampler(problem: Problem, points: int) -> Callable[[Any], np.ndarra
 def evaluator_data(problem: Problem, state: SearchState) -> dict[str, np.ndarray]:
     """Flattened warm state per family that has one (e.g. tracked orbits)."""
     out = {}
-    for name, st in zip(problem.names, state.evaluator_states):
+    for name, st in zip(problem.names,
+                        registry.expand_states(state.evaluator_states, problem.slots)):
         leaves = jax.tree_util.tree_leaves(st)
         if leaves:
             out[name] = np.concatenate([np.asarray(v, dtype=np.float64).ravel() for v in leaves])
@@ -728,8 +737,9 @@ def recheck(problem: Problem, state: SearchState, linearize: Callable | None = N
     a continuation state carries; they are recomputed with ``linearize`` (``Prepared.linearize``).
     """
     curve = problem.curve(state.params)
+    states = registry.expand_states(state.evaluator_states, problem.slots)
     new_states, reports, done = [], [], {}
-    for name, ev, st in zip(problem.names, problem.evaluators, state.evaluator_states):
+    for name, ev, st in zip(problem.names, problem.evaluators, states):
         if ev.recheck is None:
             new_states.append(st)
             continue
@@ -741,8 +751,8 @@ def recheck(problem: Problem, state: SearchState, linearize: Callable | None = N
         st, status = result if key is None else done[key]
         new_states.append(st)
         reports.append((name, Status(int(status))))
-    changed = any(a is not b for a, b in zip(new_states, state.evaluator_states))
-    state = state._replace(evaluator_states=tuple(new_states))
+    changed = any(a is not b for a, b in zip(new_states, states))
+    state = state._replace(evaluator_states=registry.compact_states(new_states, problem.slots))
     if changed and state.jacobian.size:
         if linearize is None:
             raise ValueError("recheck: a hook changed a tracked state; pass `linearize` so the "
