@@ -4,6 +4,9 @@ Each family's state is an :class:`objectives.orbits.OrbitSet` (jnp arrays): ``in
 global search (:func:`objectives.orbits.find_orbits`), ``evaluate`` the jittable warm solve
 (:func:`objectives.orbits.refine_orbits`), and ``recheck`` a fresh global search compared with the
 tracked orbits (:func:`objectives.orbits.same_orbits`). Status: the most severe orbit status.
+Families reading the same orbits share that state; in a search, every orbit family with equal
+``iterates`` joins one pool (:func:`deform.invariants.join_pools`): one cold search up to the
+largest max period and one warm solve holding each orbit once.
 Labels are fixed when the family is built: ``L[1/3,max]``, ``tr[2/5,minimax]``, ``L[bb0]``,
 ``A[1/2,minimax;m=2]``.
 """
