@@ -33,7 +33,10 @@ class Shared(NamedTuple):
     curve whose parameters carry a leading axis with one copy per lane (the leading axis of
     every state leaf), lane k reading copy k only; ``lanes[j]`` is the lane entry j of ``read``
     depends on. :func:`linearize_families` then needs one reverse pass per entry of a lane
-    instead of one per entry."""
+    instead of one per entry.
+
+    ``status_of(state)`` (optional) is the family's own status from the advanced state, when
+    the solve serves families that read different parts of it (default: ``advance``'s)."""
 
     key: Any
     advance: Callable[[Curve, Any], tuple[Any, Any]]
@@ -41,6 +44,7 @@ class Shared(NamedTuple):
     advance_lanes: Callable[[Curve, Any], tuple[Any, Any]] | None = None
     lanes: tuple[int, ...] | None = None
     pool: Pool | None = None
+    status_of: Callable[[Any], Any] | None = None
 
 
 class Pool(NamedTuple):
@@ -131,6 +135,8 @@ def evaluate_families(evaluators, curve: Curve, states) -> tuple[list, tuple, An
             if ev.shared.key not in advanced:
                 advanced[ev.shared.key] = ev.shared.advance(curve, state)
             st, status = advanced[ev.shared.key]
+            if ev.shared.status_of is not None:
+                status = ev.shared.status_of(st)
             v = ev.shared.read(st)
             status = finite_or(jnp.atleast_1d(v), status)
         values.append(jnp.atleast_1d(v).astype(jnp.float64))

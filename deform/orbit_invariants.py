@@ -46,11 +46,6 @@ def _to_state(orbits: orb.OrbitSet) -> orb.OrbitSet:
     return jax.tree_util.tree_map(jnp.asarray, orbits)
 
 
-def _recheck(curve, state):
-    statuses, _ = orb.same_orbits(curve, state)
-    return state, code(Status(int(np.max(statuses, initial=0))))
-
-
 def _advance(curve, state):
     fresh = orb.refine_orbits(curve, state)
     return fresh, jnp.max(fresh.status)
@@ -123,21 +118,34 @@ def _pooled(requests: list[tuple[tuple[str, ...], _Need]]) -> list[Evaluator]:
         rows = [r for block, keys in blocks.items() for r in _BLOCKS[block](found, keys)]
         return _to_state(found.select(rows))
 
+    compared = [None, None, None]  # (curve, state, statuses) of the last recheck of the pool
+
     def evaluator(labels, need):
         rows = np.asarray([position[(need.block, k)] for k in need.keys])
 
         def read(state):
             return need.values_fn(_take(state, rows))
 
+        def status_of(state):
+            # only this family's orbits: another family's failing orbit is reported there
+            return jnp.max(_take(state, rows).status)
+
         def evaluate(curve, state):
-            fresh, status = _advance(curve, state)
+            fresh, _ = _advance(curve, state)
             values = read(fresh)
-            return values, fresh, finite_or(values, status)
+            return values, fresh, finite_or(values, status_of(fresh))
+
+        def recheck(curve, state):
+            # the families of a pool are rechecked one after another on one curve and state:
+            # one global search serves them all
+            if compared[0] is not curve or compared[1] is not state:
+                compared[:] = curve, state, orb.same_orbits(curve, state)[0]
+            return state, code(Status(int(np.max(compared[2][rows], initial=0))))
 
         shared = Shared(key, _advance, read, _advance_lanes,
-                        tuple(int(rows[j]) for j in need.lanes), Pool(("orbits", iterates),
-                                                                      _join, need))
-        return Evaluator(labels, init, evaluate, _recheck, shared)
+                        tuple(int(rows[j]) for j in need.lanes),
+                        Pool(("orbits", iterates), _join, need), status_of)
+        return Evaluator(labels, init, evaluate, recheck, shared)
 
     return [evaluator(labels, need) for labels, need in requests]
 

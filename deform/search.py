@@ -738,17 +738,13 @@ def recheck(problem: Problem, state: SearchState, linearize: Callable | None = N
     """
     curve = problem.curve(state.params)
     states = registry.expand_states(state.evaluator_states, problem.slots)
-    new_states, reports, done = [], [], {}
+    new_states, reports = [], []
     for name, ev, st in zip(problem.names, problem.evaluators, states):
         if ev.recheck is None:
             new_states.append(st)
             continue
-        key = None if ev.shared is None else ev.shared.key
-        if key is None or key not in done:
-            result = ev.recheck(curve, st)
-            if key is not None:
-                done[key] = result
-        st, status = result if key is None else done[key]
+        # each family reports on its own orbits; families sharing a solve share its search
+        st, status = ev.recheck(curve, st)
         new_states.append(st)
         reports.append((name, Status(int(status))))
     changed = any(a is not b for a, b in zip(new_states, states))
