@@ -37,7 +37,7 @@ import optax
 from objectives.distance import shape_distance
 from objectives.status import Status
 
-from .invariants import evaluate_families
+from .invariants import evaluate_families, init_families
 from .rigidity import NamedEvaluator, build_evaluators, row_scales
 from .shape import Shape, from_family
 
@@ -127,11 +127,10 @@ def make_problem(family, evaluators: Sequence[NamedEvaluator], floor: float,
                  weight: float) -> PairProblem:
     """Scales from the base shape of ``family``."""
     base = from_family(family).curve()
-    values, row_family = [], []
-    for named in evaluators:
-        v, _, _ = named.evaluator.evaluate(base, named.evaluator.init(base))
-        values.append(np.atleast_1d(np.asarray(v)))
-        row_family += [named.name] * len(named.evaluator.labels)
+    evs = [named.evaluator for named in evaluators]
+    values = [np.atleast_1d(np.asarray(v))
+              for v in evaluate_families(evs, base, init_families(evs, base))[0]]
+    row_family = [named.name for named in evaluators for _ in named.evaluator.labels]
     return PairProblem(family, tuple(evaluators), row_scales(np.concatenate(values), row_family),
                        float(floor), float(weight))
 
@@ -208,8 +207,9 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
     x = jnp.concatenate([random_start(problem.family, key_a, spec.spread, spec.decay),
                          random_start(problem.family, key_b, spec.spread, spec.decay)])
     a, b = problem.split(x)
-    states_a = [e.evaluator.init(a.curve()) for e in problem.evaluators]
-    states_b = [e.evaluator.init(b.curve()) for e in problem.evaluators]
+    evs = [e.evaluator for e in problem.evaluators]
+    states_a = list(init_families(evs, a.curve()))
+    states_b = list(init_families(evs, b.curve()))
     labels = [lbl for e in problem.evaluators for lbl in e.evaluator.labels]
     opt_state = optax.adam(spec.learning_rate).init(x)
     weights = mode_weights(problem.family, spec.decay)
@@ -259,10 +259,11 @@ def run_start(problem: PairProblem, spec, index: int, seed: int, output: str | N
         va, states_a, codes_a = _evaluate_all(a.curve(), problem.evaluators, states_a)
         vb, states_b, codes_b = _evaluate_all(b.curve(), problem.evaluators, states_b)
         worst = max(worst, Status(int(jnp.max(codes_a))), Status(int(jnp.max(codes_b))))
-        for named, sa, sb in zip(problem.evaluators, states_a, states_b):
-            if named.evaluator.recheck is not None:
-                for shape, st in ((a, sa), (b, sb)):
-                    worst = max(worst, Status(int(named.evaluator.recheck(shape.curve(), st)[1])))
+        for shape, states in ((a, states_a), (b, states_b)):
+            curve = shape.curve()  # one curve per shape: pooled families share one search
+            for named, st in zip(problem.evaluators, states):
+                if named.evaluator.recheck is not None:
+                    worst = max(worst, Status(int(named.evaluator.recheck(curve, st)[1])))
         va, vb = np.asarray(va), np.asarray(vb)
         mismatch = float(np.max(np.abs(va - vb) / problem.scales))
         distance = float(shape_distance(a.curve(), b.curve()))
@@ -309,10 +310,13 @@ def recheck_pair(family, params_a, params_b, evaluators: Sequence[NamedEvaluator
     mismatch exceeds ``tolerance`` tells the shapes apart (None if none does)."""
     a, b = Shape(family, jnp.asarray(params_a)), Shape(family, jnp.asarray(params_b))
     rows, first = [], None
-    for named in evaluators:
+    evs = [named.evaluator for named in evaluators]
+    curve_a, curve_b = a.curve(), b.curve()
+    states_a, states_b = init_families(evs, curve_a), init_families(evs, curve_b)
+    for named, st_a, st_b in zip(evaluators, states_a, states_b):
         ev = named.evaluator
-        va, _, sa = ev.evaluate(a.curve(), ev.init(a.curve()))
-        vb, _, sb = ev.evaluate(b.curve(), ev.init(b.curve()))
+        va, _, sa = ev.evaluate(curve_a, st_a)
+        vb, _, sb = ev.evaluate(curve_b, st_b)
         va, vb = np.atleast_1d(np.asarray(va)), np.atleast_1d(np.asarray(vb))
         scale = row_scales(np.abs(va) + np.abs(vb), [named.name] * va.size) / 2
         gap = float(np.max(np.abs(va - vb) / scale))

@@ -63,6 +63,12 @@ def _take(state: orb.OrbitSet, rows: np.ndarray) -> orb.OrbitSet:
     return jax.tree_util.tree_map(lambda a: a[rows], state)
 
 
+def _equal(a, b) -> bool:
+    """Equal states (host-side check; jitted steps return equal states as distinct arrays)."""
+    return a is b or (a is not None and all(
+        np.array_equal(np.asarray(u), np.asarray(v), equal_nan=True) for u, v in zip(a, b)))
+
+
 class _Need(NamedTuple):
     """What one orbit family reads from its warm solve: the orbits ``keys`` of ``block``
     (Birkhoff orbits by (p, q, branch); bouncing balls by rank, longest first), found by a cold
@@ -138,7 +144,7 @@ def _pooled(requests: list[tuple[tuple[str, ...], _Need]]) -> list[Evaluator]:
         def recheck(curve, state):
             # the families of a pool are rechecked one after another on one curve and state:
             # one global search serves them all
-            if compared[0] is not curve or compared[1] is not state:
+            if compared[0] is not curve or not _equal(compared[1], state):
                 compared[:] = curve, state, orb.same_orbits(curve, state)[0]
             return state, code(Status(int(np.max(compared[2][rows], initial=0))))
 

@@ -82,10 +82,12 @@ class ScanResult:
 
 def build_evaluators(specs: Sequence[tuple[str, dict]], where: str = "scan.families"
                      ) -> list[NamedEvaluator]:
-    """Registry families from (name, options) pairs."""
-    from .invariants import build
+    """Registry families from (name, options) pairs, pooled like a search's (one orbit solve
+    for every orbit family: :func:`deform.invariants.join_pools`)."""
+    from .invariants import build, join_pools
 
-    return [NamedEvaluator(name, build(name, options, where)) for name, options in specs]
+    built = join_pools([build(name, options, where) for name, options in specs])
+    return [NamedEvaluator(name, ev) for (name, _), ev in zip(specs, built)]
 
 
 @functools.lru_cache(maxsize=64)
