@@ -170,11 +170,11 @@ def _harmonic_table(t, ks):
 
 
 def _fourier_sum(coeffs, t, modes):
-    # dot, not sum of products: vmapped over ≥128 points XLA (CPU) stops fusing the
-    # elementwise-then-reduce form of the curve jets, which then cost ~1.6× as much
+    # one dot, not a sum of products: vmapped over ≥128 points XLA (CPU) stops fusing the
+    # product-then-reduce form of the curve jets (then ~1.6× slower); one dot is also faster
+    # than two below that
     cos_kt, sin_kt = harmonics(t, tuple(range(1, modes + 1)))
-    c, s = coeffs[1:modes + 1], coeffs[modes + 1:]
-    return coeffs[0] + (jnp.dot(c, cos_kt) + jnp.dot(s, sin_kt))
+    return coeffs[0] + jnp.dot(coeffs[1:], jnp.concatenate([cos_kt, sin_kt]))
 
 
 @dataclass(frozen=True)
@@ -246,10 +246,11 @@ class Support(ShapeFamily):
 
     def boundary_full(self, coeffs, phi):
         k = jnp.arange(1, self.modes + 1, dtype=jnp.float64)
-        c, s = coeffs[1:self.modes + 1], coeffs[self.modes + 1:]
         cos_kp, sin_kp = harmonics(phi, tuple(range(1, self.modes + 1)))
-        h = coeffs[0] + jnp.sum(c * cos_kp + s * sin_kp)
-        dh = jnp.sum(k * (-c * sin_kp + s * cos_kp))
+        # h − p and h' as one matrix-vector product (see _fourier_sum)
+        h, dh = jnp.stack([jnp.concatenate([cos_kp, sin_kp]),
+                           jnp.concatenate([-k * sin_kp, k * cos_kp])]) @ coeffs[1:]
+        h = coeffs[0] + h
         n = jnp.stack([jnp.cos(phi), jnp.sin(phi)])
         dn = jnp.stack([-jnp.sin(phi), jnp.cos(phi)])
         return h * n + dh * dn
@@ -327,10 +328,10 @@ class FourierCurve(ShapeFamily):
         return _complex_layout(self.modes, self.symmetry, False)[0]
 
     def boundary_full(self, coeffs, t):
-        n = 2 * self.modes + 1
-        re, im = coeffs[:n], coeffs[n:]
         c, s = harmonics(t, tuple(range(-self.modes, self.modes + 1)))
-        return jnp.stack([jnp.dot(re, c) - jnp.dot(im, s), jnp.dot(re, s) + jnp.dot(im, c)])
+        # coeffs = [Re z_k, Im z_k]: one matrix-vector product for both coordinates (see
+        # _fourier_sum)
+        return jnp.stack([jnp.concatenate([c, -s]), jnp.concatenate([s, c])]) @ coeffs
 
     def admissibility(self, params):
         from objectives.curve import Curve
