@@ -74,16 +74,17 @@ class Evaluator(NamedTuple):
 
 
 def join_pools(evaluators) -> tuple:
-    """The evaluators with every pool of two or more differently keyed members rebuilt by its
-    ``join`` into one shared warm solve (one cold search, one warm solve per evaluation), in the
-    same order. Pure: the result depends only on the evaluators' specs, not on any shape."""
+    """The evaluators with every pool of two or more members rebuilt by its ``join`` around
+    one shared solve (one cold search, one warm solve per evaluation, one search per recheck),
+    in the same order. Pure: the result depends only on the evaluators' specs, not on any
+    shape."""
     evaluators = list(evaluators)
     pools: dict[Any, list[int]] = {}
     for i, ev in enumerate(evaluators):
         if ev.shared is not None and ev.shared.pool is not None:
             pools.setdefault(ev.shared.pool.key, []).append(i)
     for members in pools.values():
-        if len({evaluators[i].shared.key for i in members}) < 2:
+        if len(members) < 2:
             continue
         joined = evaluators[members[0]].shared.pool.join([evaluators[i] for i in members])
         for i, ev in zip(members, joined):

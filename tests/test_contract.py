@@ -302,23 +302,37 @@ def test_pooled_orbit_families_equal_separate_ones():
     np.testing.assert_array_equal(c_joined, c_alone)
 
 
-def test_pooled_families_report_their_own_orbits():
+def test_pooled_families_report_their_own_orbits(monkeypatch):
     """In a pool each family's status and identity recheck cover its own orbits only (common
     practice: a failure is reported where it happened). A bouncing ball moved off its orbit
     (bounce points shifted by 0.3) is no orbit of the fresh global search: the bouncing-ball
     family reports branch_changed, the lengths of the Birkhoff orbits stay ok; a failed status
-    on that orbit is read by the bouncing-ball family alone."""
+    on that orbit is read by the bouncing-ball family alone. The three families' rechecks
+    share one global search, also when the states are equal copies (as jitted steps return
+    them)."""
+    from objectives import orbits
+
     shape = from_family(parse_shape(Reader(SHAPE_EXAMPLES["polar"], "shape")))
     curve = shape.curve()
     joined = invariants.join_pools([invariants.build("orbit_lengths", {"max_period": 3}),
+                                    invariants.build("orbit_traces", {"max_period": 3}),
                                     invariants.build("bouncing_balls", {"count": 1})])
-    lengths, bouncing = joined
+    lengths, traces, bouncing = joined
     state = invariants.init_families(joined, curve)[0]
     assert state.p.shape == (5,)  # 1/2, 1/3 max and min-max, then the longest bouncing ball
     moved = state._replace(t=state.t.at[4].add(0.3),
                            status=state.status.at[4].set(int(Status.solver_failed)))
-    assert [Status(int(ev.recheck(curve, state)[1])) for ev in joined] == [Status.ok] * 2
+    searches = []
+    same_orbits = orbits.same_orbits
+    monkeypatch.setattr(orbits, "same_orbits",
+                        lambda *a, **k: searches.append(1) or same_orbits(*a, **k))
+    copies = [jax.tree_util.tree_map(jnp.array, state) for _ in joined]
+    assert [Status(int(ev.recheck(curve, st)[1])) for ev, st in zip(joined, copies)] == [
+        Status.ok] * 3
+    assert len(searches) == 1
     assert [Status(int(ev.recheck(curve, moved)[1])) for ev in joined] == [
-        Status.ok, Status.branch_changed]
+        Status.ok, Status.ok, Status.branch_changed]
+    assert len(searches) == 2
     assert Status(int(lengths.shared.status_of(moved))) == Status.ok
+    assert Status(int(traces.shared.status_of(moved))) == Status.ok
     assert Status(int(bouncing.shared.status_of(moved))) == Status.solver_failed
