@@ -197,9 +197,9 @@ def linearize_families(evaluators, curve_of: Callable[[Any], Curve], x, states):
     otherwise: one reverse pass over all families would push every row's cotangent through
     every family (measured 3-5× slower than per-group passes on a 50-value orbit/heat set).
     """
-    groups: dict[Any, list[int]] = {}
-    for i, ev in enumerate(evaluators):
-        groups.setdefault(("alone", i) if ev.shared is None else ev.shared.key, []).append(i)
+    groups: dict[int, list[int]] = {}
+    for i, slot in enumerate(state_slots(evaluators)):
+        groups.setdefault(slot, []).append(i)
     values, jacobians = [None] * len(evaluators), [None] * len(evaluators)
     new_states, codes = [None] * len(evaluators), [None] * len(evaluators)
     for members in groups.values():
